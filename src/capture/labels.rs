@@ -1,0 +1,624 @@
+//! Label tables: per-frame labels from `frames.tsv`, or time-aligned segments
+//! (`utterances.tsv` + `segments.tsv`) turned into frame labels by the frame-centre rule:
+//! frame i of an utterance has centre time `i * hop_s + win_s / 2` (with the default
+//! `win_s = hop_s` this is `(i + 0.5) * hop_s`) and takes the label of the segment
+//! `start_s <= t < end_s` that contains it; frames in no segment are unlabelled.
+
+use std::collections::HashMap;
+use std::path::Path;
+
+use super::CaptureError;
+
+/// Code of a frame that has no label for a task.
+pub const UNLABELLED: u32 = u32::MAX;
+
+/// One label task (a column): class names and one code per frame.
+#[derive(Clone, Debug)]
+pub struct LabelTask {
+    /// Column name (`phone`, `speaker`, ...).
+    pub name: String,
+    /// Class names, indexed by code, in order of first appearance.
+    pub classes: Vec<String>,
+    /// One code per frame; [`UNLABELLED`] where the frame has no label.
+    pub codes: Vec<u32>,
+}
+
+impl LabelTask {
+    /// Frames per class.
+    pub fn class_counts(&self) -> Vec<usize> {
+        let mut c = vec![0usize; self.classes.len()];
+        for &k in &self.codes {
+            if k != UNLABELLED {
+                c[k as usize] += 1;
+            }
+        }
+        c
+    }
+
+    /// Number of unlabelled frames.
+    pub fn n_unlabelled(&self) -> usize {
+        self.codes.iter().filter(|&&k| k == UNLABELLED).count()
+    }
+
+    fn from_strings(name: &str, values: Vec<Option<String>>) -> LabelTask {
+        let mut index: HashMap<String, u32> = HashMap::new();
+        let mut classes = Vec::new();
+        let codes = values
+            .into_iter()
+            .map(|v| match v {
+                None => UNLABELLED,
+                Some(s) => *index.entry(s.clone()).or_insert_with(|| {
+                    classes.push(s);
+                    (classes.len() - 1) as u32
+                }),
+            })
+            .collect();
+        LabelTask { name: name.to_string(), classes, codes }
+    }
+}
+
+/// Everything known about the frames of a capture apart from the activations.
+#[derive(Clone, Debug)]
+pub struct FrameTable {
+    /// Utterance names, in order of first appearance.
+    pub utterances: Vec<String>,
+    /// Speaker index of each utterance.
+    pub utt_speaker: Vec<u32>,
+    /// Speaker names, in order of first appearance.
+    pub speakers: Vec<String>,
+    /// Utterance index of each frame.
+    pub frame_utt: Vec<u32>,
+    /// Index of each frame within its utterance.
+    pub frame_pos: Vec<u32>,
+    /// Label tasks; always includes `speaker` (last), plus every other label column.
+    pub tasks: Vec<LabelTask>,
+}
+
+impl FrameTable {
+    /// Number of frames.
+    pub fn n_frames(&self) -> usize {
+        self.frame_utt.len()
+    }
+
+    /// Speaker index of each frame.
+    pub fn frame_speaker(&self) -> Vec<u32> {
+        self.frame_utt.iter().map(|&u| self.utt_speaker[u as usize]).collect()
+    }
+
+    /// The task of that name.
+    pub fn task(&self, name: &str) -> Option<&LabelTask> {
+        self.tasks.iter().find(|t| t.name == name)
+    }
+
+    /// Names of all tasks.
+    pub fn task_names(&self) -> Vec<String> {
+        self.tasks.iter().map(|t| t.name.clone()).collect()
+    }
+
+    /// Mark the frames flagged in `bad` unlabelled in every task (they stay in place).
+    pub fn mask_frames(&mut self, bad: &[bool]) {
+        for t in &mut self.tasks {
+            for (c, &b) in t.codes.iter_mut().zip(bad) {
+                if b {
+                    *c = UNLABELLED;
+                }
+            }
+        }
+    }
+}
+
+/// How label values are cleaned before analysis.
+#[derive(Clone, Debug, Default)]
+pub struct LabelOptions {
+    /// Label values to treat as unlabelled (e.g. `sil`), in every task but `speaker`.
+    pub drop: Vec<String>,
+    /// Label merges `from -> to`, in every task but `speaker`.
+    pub merge: HashMap<String, String>,
+    /// Columns to keep as tasks (empty: all).
+    pub columns: Vec<String>,
+}
+
+/// Column names that a frame table must or may use for the grouping columns.
+pub struct Columns<'a> {
+    /// Utterance column name.
+    pub utterance: &'a str,
+    /// Speaker column name.
+    pub speaker: &'a str,
+}
+
+/// Read a tab-separated table: header fields and rows, with row numbers for errors.
+/// Rows are 1-based file lines (the header is line 1).
+pub fn read_tsv(path: &Path) -> Result<(Vec<String>, Vec<(usize, Vec<String>)>), CaptureError> {
+    let bytes = std::fs::read(path).map_err(|e| CaptureError::io(path, e))?;
+    let text = std::str::from_utf8(&bytes).map_err(|e| {
+        let line = bytes[..e.valid_up_to()].iter().filter(|&&b| b == b'\n').count() + 1;
+        CaptureError::Table {
+            path: path.to_path_buf(),
+            row: line,
+            field: "text".into(),
+            expected: "UTF-8 text".into(),
+            found: format!("a byte that is not UTF-8 at byte offset {}", e.valid_up_to()),
+        }
+    })?;
+    let text = text.strip_prefix('\u{feff}').unwrap_or(text);
+    let mut lines = text.split('\n').enumerate().filter_map(|(i, l)| {
+        let l = l.strip_suffix('\r').unwrap_or(l);
+        if l.is_empty() || l.starts_with('#') {
+            None
+        } else {
+            Some((i + 1, l))
+        }
+    });
+    let (_, head) = lines.next().ok_or_else(|| CaptureError::Table {
+        path: path.to_path_buf(),
+        row: 1,
+        field: "header".into(),
+        expected: "a header line of tab-separated column names".into(),
+        found: "an empty file".into(),
+    })?;
+    let header: Vec<String> = head.split('\t').map(|s| s.trim().to_string()).collect();
+    let mut rows = Vec::new();
+    for (line, l) in lines {
+        let fields: Vec<String> = l.split('\t').map(|s| s.trim().to_string()).collect();
+        if fields.len() != header.len() {
+            return Err(CaptureError::Table {
+                path: path.to_path_buf(),
+                row: line,
+                field: "row".into(),
+                expected: format!("{} tab-separated fields ({})", header.len(), header.join(", ")),
+                found: format!("{} fields", fields.len()),
+            });
+        }
+        rows.push((line, fields));
+    }
+    Ok((header, rows))
+}
+
+fn column(path: &Path, header: &[String], name: &str) -> Result<usize, CaptureError> {
+    header.iter().position(|h| h == name).ok_or_else(|| CaptureError::Table {
+        path: path.to_path_buf(),
+        row: 1,
+        field: name.into(),
+        expected: format!("a column named '{name}'"),
+        found: format!("columns {}", header.join(", ")),
+    })
+}
+
+struct Builder {
+    utterances: Vec<String>,
+    utt_index: HashMap<String, u32>,
+    utt_speaker: Vec<u32>,
+    utt_len: Vec<u32>,
+    speakers: Vec<String>,
+    spk_index: HashMap<String, u32>,
+}
+
+impl Builder {
+    fn new() -> Self {
+        Builder {
+            utterances: vec![],
+            utt_index: HashMap::new(),
+            utt_speaker: vec![],
+            utt_len: vec![],
+            speakers: vec![],
+            spk_index: HashMap::new(),
+        }
+    }
+    fn speaker(&mut self, s: &str) -> u32 {
+        if let Some(&k) = self.spk_index.get(s) {
+            return k;
+        }
+        self.speakers.push(s.to_string());
+        let k = (self.speakers.len() - 1) as u32;
+        self.spk_index.insert(s.to_string(), k);
+        k
+    }
+}
+
+fn clean(opts: &LabelOptions, v: &str) -> Option<String> {
+    if v.is_empty() {
+        return None;
+    }
+    let v = opts.merge.get(v).map(String::as_str).unwrap_or(v);
+    if opts.drop.iter().any(|d| d == v) {
+        None
+    } else {
+        Some(v.to_string())
+    }
+}
+
+fn speaker_task(b: &Builder, frame_utt: &[u32]) -> LabelTask {
+    LabelTask {
+        name: "speaker".into(),
+        classes: b.speakers.clone(),
+        codes: frame_utt.iter().map(|&u| b.utt_speaker[u as usize]).collect(),
+    }
+}
+
+/// Read `frames.tsv`: one row per frame with utterance, speaker and label columns.
+pub fn read_frames_tsv(
+    path: &Path,
+    cols: &Columns,
+    opts: &LabelOptions,
+) -> Result<FrameTable, CaptureError> {
+    let (header, rows) = read_tsv(path)?;
+    let ucol = column(path, &header, cols.utterance)?;
+    let scol = column(path, &header, cols.speaker)?;
+    let mut task_cols: Vec<usize> = (0..header.len()).filter(|&c| c != ucol && c != scol).collect();
+    if !opts.columns.is_empty() {
+        for want in &opts.columns {
+            if want != "speaker" {
+                column(path, &header, want)?;
+            }
+        }
+        task_cols.retain(|&c| opts.columns.contains(&header[c]));
+    }
+    if rows.is_empty() {
+        return Err(CaptureError::Table {
+            path: path.to_path_buf(),
+            row: 2,
+            field: "rows".into(),
+            expected: "one row per frame".into(),
+            found: "a header and no rows".into(),
+        });
+    }
+    let mut b = Builder::new();
+    let mut frame_utt = Vec::with_capacity(rows.len());
+    let mut frame_pos = Vec::with_capacity(rows.len());
+    let mut values: Vec<Vec<Option<String>>> = vec![Vec::with_capacity(rows.len()); task_cols.len()];
+    for (line, f) in &rows {
+        let utt = &f[ucol];
+        let spk = &f[scol];
+        if utt.is_empty() || spk.is_empty() {
+            return Err(CaptureError::Table {
+                path: path.to_path_buf(),
+                row: *line,
+                field: if utt.is_empty() { cols.utterance.into() } else { cols.speaker.into() },
+                expected: "a non-empty name".into(),
+                found: "an empty field".into(),
+            });
+        }
+        let s = b.speaker(spk);
+        let u = match b.utt_index.get(utt.as_str()) {
+            Some(&u) => {
+                if b.utt_speaker[u as usize] != s {
+                    return Err(CaptureError::Table {
+                        path: path.to_path_buf(),
+                        row: *line,
+                        field: cols.speaker.into(),
+                        expected: format!(
+                            "speaker '{}' (as on earlier rows of utterance '{utt}')",
+                            b.speakers[b.utt_speaker[u as usize] as usize]
+                        ),
+                        found: format!("'{spk}'"),
+                    });
+                }
+                u
+            }
+            None => {
+                b.utterances.push(utt.clone());
+                b.utt_speaker.push(s);
+                b.utt_len.push(0);
+                let u = (b.utterances.len() - 1) as u32;
+                b.utt_index.insert(utt.clone(), u);
+                u
+            }
+        };
+        frame_utt.push(u);
+        frame_pos.push(b.utt_len[u as usize]);
+        b.utt_len[u as usize] += 1;
+        for (k, &c) in task_cols.iter().enumerate() {
+            values[k].push(clean(opts, &f[c]));
+        }
+    }
+    let mut tasks: Vec<LabelTask> = task_cols
+        .iter()
+        .zip(values)
+        .map(|(&c, v)| LabelTask::from_strings(&header[c], v))
+        .collect();
+    tasks.push(speaker_task(&b, &frame_utt));
+    Ok(FrameTable {
+        utterances: b.utterances,
+        utt_speaker: b.utt_speaker,
+        speakers: b.speakers,
+        frame_utt,
+        frame_pos,
+        tasks,
+    })
+}
+
+/// Frame timing for the segment rule.
+#[derive(Clone, Copy, Debug)]
+pub struct Timing {
+    /// Frame shift in seconds.
+    pub hop_s: f64,
+    /// Analysis window in seconds; the frame centre is `i * hop_s + win_s / 2`.
+    pub win_s: f64,
+}
+
+impl Timing {
+    /// Centre time of frame `i`.
+    pub fn centre(&self, i: usize) -> f64 {
+        i as f64 * self.hop_s + self.win_s / 2.0
+    }
+}
+
+/// Slack allowed past an utterance's last frame for segment ends, in frame shifts;
+/// front ends drop a partial window at the end, so aligner times run a little past the frames.
+pub const SEGMENT_END_SLACK_FRAMES: f64 = 3.0;
+
+/// Read `utterances.tsv` + `segments.tsv` and convert segments to frame labels.
+pub fn read_segments(
+    utt_path: &Path,
+    seg_path: &Path,
+    cols: &Columns,
+    label_name: &str,
+    timing: Timing,
+    opts: &LabelOptions,
+) -> Result<FrameTable, CaptureError> {
+    let (uh, urows) = read_tsv(utt_path)?;
+    let ucol = column(utt_path, &uh, cols.utterance)?;
+    let scol = column(utt_path, &uh, cols.speaker)?;
+    let fcol = column(utt_path, &uh, "frames")?;
+    if urows.is_empty() {
+        return Err(CaptureError::Table {
+            path: utt_path.to_path_buf(),
+            row: 2,
+            field: "rows".into(),
+            expected: "one row per utterance".into(),
+            found: "a header and no rows".into(),
+        });
+    }
+    let mut b = Builder::new();
+    for (line, f) in &urows {
+        let n: u32 = f[fcol].parse().map_err(|_| CaptureError::Table {
+            path: utt_path.to_path_buf(),
+            row: *line,
+            field: "frames".into(),
+            expected: "a whole number of frames".into(),
+            found: format!("'{}'", f[fcol]),
+        })?;
+        if b.utt_index.contains_key(&f[ucol]) {
+            return Err(CaptureError::Table {
+                path: utt_path.to_path_buf(),
+                row: *line,
+                field: cols.utterance.into(),
+                expected: "each utterance once".into(),
+                found: format!("'{}' a second time", f[ucol]),
+            });
+        }
+        let s = b.speaker(&f[scol]);
+        b.utterances.push(f[ucol].clone());
+        b.utt_speaker.push(s);
+        b.utt_len.push(n);
+        b.utt_index.insert(f[ucol].clone(), (b.utterances.len() - 1) as u32);
+    }
+
+    let (sh, srows) = read_tsv(seg_path)?;
+    let su = column(seg_path, &sh, cols.utterance)?;
+    let ss = column(seg_path, &sh, "start_s")?;
+    let se = column(seg_path, &sh, "end_s")?;
+    let sl = column(seg_path, &sh, "label")?;
+    // Segments grouped per utterance: (start, end, label, line).
+    let mut per_utt: Vec<Vec<(f64, f64, String, usize)>> = vec![Vec::new(); b.utterances.len()];
+    for (line, f) in &srows {
+        let u = *b.utt_index.get(&f[su]).ok_or_else(|| CaptureError::Table {
+            path: seg_path.to_path_buf(),
+            row: *line,
+            field: cols.utterance.into(),
+            expected: format!("an utterance listed in {}", utt_path.display()),
+            found: format!("'{}'", f[su]),
+        })?;
+        let num = |c: usize, name: &str| -> Result<f64, CaptureError> {
+            let v: f64 = f[c].parse().map_err(|_| CaptureError::Table {
+                path: seg_path.to_path_buf(),
+                row: *line,
+                field: name.into(),
+                expected: "a time in seconds".into(),
+                found: format!("'{}'", f[c]),
+            })?;
+            if !v.is_finite() || v < 0.0 {
+                return Err(CaptureError::Table {
+                    path: seg_path.to_path_buf(),
+                    row: *line,
+                    field: name.into(),
+                    expected: "a finite time >= 0".into(),
+                    found: format!("'{}'", f[c]),
+                });
+            }
+            Ok(v)
+        };
+        let (s, e) = (num(ss, "start_s")?, num(se, "end_s")?);
+        if e <= s {
+            return Err(CaptureError::Table {
+                path: seg_path.to_path_buf(),
+                row: *line,
+                field: "end_s".into(),
+                expected: format!("an end after the start {s}"),
+                found: format!("{e}"),
+            });
+        }
+        let n = b.utt_len[u as usize] as f64;
+        let limit = (n + SEGMENT_END_SLACK_FRAMES) * timing.hop_s + timing.win_s - timing.hop_s;
+        if e > limit + 1e-9 {
+            return Err(CaptureError::Table {
+                path: seg_path.to_path_buf(),
+                row: *line,
+                field: "end_s".into(),
+                expected: format!(
+                    "an end within utterance '{}' ({} frames, {:.3} s at hop {} s)",
+                    f[su],
+                    n,
+                    n * timing.hop_s,
+                    timing.hop_s
+                ),
+                found: format!("{e}"),
+            });
+        }
+        per_utt[u as usize].push((s, e, f[sl].clone(), *line));
+    }
+    let total: usize = b.utt_len.iter().map(|&n| n as usize).sum();
+    let mut frame_utt = Vec::with_capacity(total);
+    let mut frame_pos = Vec::with_capacity(total);
+    let mut values: Vec<Option<String>> = Vec::with_capacity(total);
+    for (u, segs) in per_utt.iter_mut().enumerate() {
+        segs.sort_by(|a, b| a.0.total_cmp(&b.0));
+        for w in segs.windows(2) {
+            if w[1].0 < w[0].1 - 1e-9 {
+                return Err(CaptureError::Table {
+                    path: seg_path.to_path_buf(),
+                    row: w[1].3,
+                    field: "start_s".into(),
+                    expected: format!(
+                        "a start at or after the end {} of the segment on row {} (segments must not overlap)",
+                        w[0].1, w[0].3
+                    ),
+                    found: format!("{}", w[1].0),
+                });
+            }
+        }
+        let n = b.utt_len[u] as usize;
+        let mut k = 0usize;
+        for i in 0..n {
+            let t = timing.centre(i);
+            while k < segs.len() && segs[k].1 <= t {
+                k += 1;
+            }
+            let label = if k < segs.len() && segs[k].0 <= t && t < segs[k].1 {
+                clean(opts, &segs[k].2)
+            } else {
+                None
+            };
+            frame_utt.push(u as u32);
+            frame_pos.push(i as u32);
+            values.push(label);
+        }
+    }
+    let mut tasks = vec![LabelTask::from_strings(label_name, values)];
+    tasks.push(speaker_task(&b, &frame_utt));
+    Ok(FrameTable {
+        utterances: b.utterances,
+        utt_speaker: b.utt_speaker,
+        speakers: b.speakers,
+        frame_utt,
+        frame_pos,
+        tasks,
+    })
+}
+
+/// Read a two-column label merge map (`from<TAB>to`, optional header `from<TAB>to`).
+pub fn read_merge_map(path: &Path) -> Result<HashMap<String, String>, CaptureError> {
+    let text = std::fs::read(path).map_err(|e| CaptureError::io(path, e))?;
+    let text = String::from_utf8(text).map_err(|_| CaptureError::Table {
+        path: path.to_path_buf(),
+        row: 1,
+        field: "text".into(),
+        expected: "UTF-8 text".into(),
+        found: "bytes that are not UTF-8".into(),
+    })?;
+    let mut out = HashMap::new();
+    for (i, line) in text.lines().enumerate() {
+        let line = line.trim_end_matches('\r');
+        if line.trim().is_empty() || line.starts_with('#') || (i == 0 && line == "from\tto") {
+            continue;
+        }
+        let f: Vec<&str> = line.split('\t').collect();
+        if f.len() != 2 || f[0].is_empty() {
+            return Err(CaptureError::Table {
+                path: path.to_path_buf(),
+                row: i + 1,
+                field: "row".into(),
+                expected: "two tab-separated fields: from, to".into(),
+                found: format!("{} fields", f.len()),
+            });
+        }
+        out.insert(f[0].to_string(), f[1].to_string());
+    }
+    Ok(out)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use std::io::Write;
+
+    fn write(dir: &Path, name: &str, text: &str) -> std::path::PathBuf {
+        let p = dir.join(name);
+        std::fs::File::create(&p).unwrap().write_all(text.as_bytes()).unwrap();
+        p
+    }
+
+    const COLS: Columns = Columns { utterance: "utterance", speaker: "speaker" };
+
+    /// Hand-worked example (common practice: 25 ms window, 10 ms hop). Frame i covers
+    /// [10i, 10i + 25) ms, so its centre is 10i + 12.5 ms:
+    /// centres 12.5, 22.5, 32.5, 42.5, 52.5, 62.5 ms for frames 0..6.
+    /// Segments: sil [0, 30) ms, a [30, 50) ms, s [50, 60) ms, gap after 60 ms.
+    /// Frame 0 (12.5) sil, 1 (22.5) sil, 2 (32.5) a, 3 (42.5) a, 4 (52.5) s, 5 (62.5) none.
+    #[test]
+    fn segments_map_to_frames_by_centre_time() {
+        let d = tempfile::tempdir().unwrap();
+        let u = write(d.path(), "utterances.tsv", "utterance\tspeaker\tframes\nu1\tA\t6\n");
+        let s = write(
+            d.path(),
+            "segments.tsv",
+            "utterance\tstart_s\tend_s\tlabel\nu1\t0.000\t0.030\tsil\nu1\t0.030\t0.050\ta\nu1\t0.050\t0.060\ts\n",
+        );
+        let t = read_segments(
+            &u,
+            &s,
+            &COLS,
+            "phone",
+            Timing { hop_s: 0.010, win_s: 0.025 },
+            &LabelOptions::default(),
+        )
+        .unwrap();
+        let ph = t.task("phone").unwrap();
+        let got: Vec<&str> = ph
+            .codes
+            .iter()
+            .map(|&c| if c == UNLABELLED { "-" } else { ph.classes[c as usize].as_str() })
+            .collect();
+        assert_eq!(got, vec!["sil", "sil", "a", "a", "s", "-"]);
+    }
+
+    #[test]
+    fn overlapping_segments_name_the_row() {
+        let d = tempfile::tempdir().unwrap();
+        let u = write(d.path(), "utterances.tsv", "utterance\tspeaker\tframes\nu1\tA\t6\n");
+        let s = write(
+            d.path(),
+            "segments.tsv",
+            "utterance\tstart_s\tend_s\tlabel\nu1\t0.0\t0.03\tsil\nu1\t0.02\t0.05\ta\n",
+        );
+        let e = read_segments(&u, &s, &COLS, "phone", Timing { hop_s: 0.01, win_s: 0.01 }, &LabelOptions::default())
+            .unwrap_err();
+        let m = e.to_string();
+        assert!(m.contains("row 3") && m.contains("overlap"), "{m}");
+    }
+
+    #[test]
+    fn wrong_field_count_names_the_row() {
+        let d = tempfile::tempdir().unwrap();
+        let p = write(d.path(), "frames.tsv", "utterance\tspeaker\tphone\nu\ts\ta\nu\ts\n");
+        let m = read_frames_tsv(&p, &COLS, &LabelOptions::default()).unwrap_err().to_string();
+        assert!(m.contains("row 3") && m.contains("3 tab-separated fields"), "{m}");
+    }
+
+    #[test]
+    fn drop_and_merge_apply_to_labels_not_speakers() {
+        let d = tempfile::tempdir().unwrap();
+        let p = write(
+            d.path(),
+            "frames.tsv",
+            "utterance\tspeaker\tphone\nu\tsil\tsil\nu\tsil\taa\nu\tsil\tao\n",
+        );
+        let mut o = LabelOptions { drop: vec!["sil".into()], ..Default::default() };
+        o.merge.insert("ao".into(), "aa".into());
+        let t = read_frames_tsv(&p, &COLS, &o).unwrap();
+        let ph = t.task("phone").unwrap();
+        assert_eq!(ph.classes, vec!["aa".to_string()]);
+        assert_eq!(ph.codes, vec![UNLABELLED, 0, 0]);
+        assert_eq!(t.task("speaker").unwrap().classes, vec!["sil".to_string()]);
+    }
+}

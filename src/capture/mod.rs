@@ -1,0 +1,552 @@
+//! A capture: one model checkpoint's per-frame activations (one `.npy` per layer, or one 3-D
+//! stack) and the labels of those frames (see `docs/design.md`, "Capture format").
+//!
+//! Opening a capture reads headers and label tables only; layer data stays memory-mapped and
+//! is converted to `f32` one layer at a time when an analysis asks for it.
+
+pub mod labels;
+pub mod npy;
+
+use std::collections::BTreeMap;
+use std::path::{Path, PathBuf};
+
+use ndarray::Array2;
+use serde::{Deserialize, Serialize};
+
+pub use labels::{FrameTable, LabelOptions, LabelTask, Timing, UNLABELLED};
+pub use npy::{Dtype, NpyFile};
+
+/// Errors while opening or reading a capture. Every variant is bad input (exit code 2)
+/// except [`CaptureError::Io`] on a file that exists but cannot be read, which is still
+/// reported as bad input because the user must fix it.
+#[derive(Debug, thiserror::Error)]
+pub enum CaptureError {
+    /// A file could not be opened or read.
+    #[error("{path}: {source}")]
+    Io {
+        /// The file.
+        path: PathBuf,
+        /// The OS error.
+        source: std::io::Error,
+    },
+    /// A `.npy` file is malformed or unsupported.
+    #[error("{path}: field '{field}': expected {expected}, found {found}")]
+    Npy {
+        /// The file.
+        path: PathBuf,
+        /// The header field or part of the file.
+        field: String,
+        /// What was expected.
+        expected: String,
+        /// What was found.
+        found: String,
+    },
+    /// A label table is malformed.
+    #[error("{path}: row {row}, field '{field}': expected {expected}, found {found}")]
+    Table {
+        /// The file.
+        path: PathBuf,
+        /// 1-based line number (the header is line 1).
+        row: usize,
+        /// Column or part of the row.
+        field: String,
+        /// What was expected.
+        expected: String,
+        /// What was found.
+        found: String,
+    },
+    /// The parts of a capture do not agree with each other, or something is missing.
+    #[error("{path}: {what}: expected {expected}, found {found}")]
+    Invalid {
+        /// The file or folder concerned.
+        path: PathBuf,
+        /// What was checked.
+        what: String,
+        /// What was expected.
+        expected: String,
+        /// What was found.
+        found: String,
+    },
+}
+
+impl CaptureError {
+    pub(crate) fn io(path: &Path, source: std::io::Error) -> Self {
+        CaptureError::Io { path: path.to_path_buf(), source }
+    }
+
+    fn invalid(path: &Path, what: &str, expected: impl Into<String>, found: impl Into<String>) -> Self {
+        CaptureError::Invalid {
+            path: path.to_path_buf(),
+            what: what.into(),
+            expected: expected.into(),
+            found: found.into(),
+        }
+    }
+}
+
+/// Contents of the optional `capture.toml`. Every key has a default.
+#[derive(Clone, Debug, Serialize, Deserialize)]
+#[serde(deny_unknown_fields, default)]
+pub struct CaptureConfig {
+    /// Display name (default: the folder name).
+    pub name: Option<String>,
+    /// Frame shift in seconds.
+    pub hop_s: f64,
+    /// Analysis window in seconds (default: `hop_s`); frame centre = i * hop_s + win_s / 2.
+    pub win_s: Option<f64>,
+    /// Layer file pattern; `{}` stands for the layer number.
+    pub layer_pattern: String,
+    /// A single 3-D `(layers, frames, dim)` file used instead of per-layer files.
+    pub stack_file: Option<String>,
+    /// Label columns to use as tasks (default: every column but utterance and speaker).
+    pub label_columns: Vec<String>,
+    /// Name of the utterance column.
+    pub utterance_column: String,
+    /// Name of the speaker column.
+    pub speaker_column: String,
+    /// Task name given to the `label` column of `segments.tsv`.
+    pub segment_label: String,
+    /// Free-form notes (model, data, accuracy); shown by `inspect` and in reports.
+    pub notes: BTreeMap<String, toml::Value>,
+}
+
+impl Default for CaptureConfig {
+    fn default() -> Self {
+        CaptureConfig {
+            name: None,
+            hop_s: 0.02,
+            win_s: None,
+            layer_pattern: "layer_{}.npy".into(),
+            stack_file: None,
+            label_columns: vec![],
+            utterance_column: "utterance".into(),
+            speaker_column: "speaker".into(),
+            segment_label: "phone".into(),
+            notes: BTreeMap::new(),
+        }
+    }
+}
+
+/// Options for opening a capture.
+#[derive(Clone, Debug, Default)]
+pub struct OpenOptions {
+    /// Label cleaning (drop, merge, columns).
+    pub labels: LabelOptions,
+    /// Drop frames with NaN/Inf in any layer instead of failing (needs a full scan).
+    pub allow_nonfinite: bool,
+}
+
+/// Where one layer's data lives.
+#[derive(Debug)]
+pub struct LayerSource {
+    /// The layer number (from the file name, or the index in a stack).
+    pub id: usize,
+    file: std::sync::Arc<NpyFile>,
+    slot: usize,
+}
+
+impl LayerSource {
+    /// The file holding this layer.
+    pub fn path(&self) -> &Path {
+        self.file.path()
+    }
+    /// Feature dimension.
+    pub fn dim(&self) -> usize {
+        self.file.layer_shape().2
+    }
+    /// Frames in this layer.
+    pub fn frames(&self) -> usize {
+        self.file.layer_shape().1
+    }
+    /// Stored element type.
+    pub fn dtype(&self) -> Dtype {
+        self.file.header().dtype
+    }
+    /// Byte order and memory order as text (`little-endian, C order`).
+    pub fn layout(&self) -> String {
+        let h = self.file.header();
+        format!(
+            "{}-endian, {} order",
+            if h.big_endian { "big" } else { "little" },
+            if h.fortran_order { "Fortran" } else { "C" }
+        )
+    }
+    /// Bytes this layer takes on disk.
+    pub fn bytes(&self) -> u64 {
+        (self.frames() as u64) * (self.dim() as u64) * (self.dtype().size() as u64)
+    }
+}
+
+/// An opened capture.
+#[derive(Debug)]
+pub struct Capture {
+    /// Folder of the capture.
+    pub dir: PathBuf,
+    /// Display name.
+    pub name: String,
+    /// Parsed capture.toml (defaults where absent).
+    pub config: CaptureConfig,
+    /// Layers in order of their number.
+    pub layers: Vec<LayerSource>,
+    /// Frame labels.
+    pub frames: FrameTable,
+    /// Frames dropped for NaN/Inf (only with `allow_nonfinite`).
+    pub nonfinite_frames: Vec<usize>,
+    /// Label source: `frames.tsv` or `segments.tsv`.
+    pub label_source: String,
+}
+
+/// Parse a pattern like `layer_{}.npy` against a file name, returning the layer number.
+fn match_pattern(pattern: &str, name: &str) -> Option<usize> {
+    let (pre, post) = pattern.split_once("{}").or_else(|| pattern.split_once('*'))?;
+    let mid = name.strip_prefix(pre)?.strip_suffix(post)?;
+    if mid.is_empty() || !mid.bytes().all(|b| b.is_ascii_digit()) || mid.len() > 9 {
+        return None;
+    }
+    mid.parse().ok()
+}
+
+impl Capture {
+    /// Open a capture folder: parse capture.toml, find layer files, read label tables and
+    /// check that everything agrees. Layer data is mapped, not read.
+    pub fn open(dir: &Path, opts: &OpenOptions) -> Result<Capture, CaptureError> {
+        let meta = std::fs::metadata(dir).map_err(|e| CaptureError::io(dir, e))?;
+        if !meta.is_dir() {
+            return Err(CaptureError::invalid(dir, "capture", "a folder", "a file"));
+        }
+        let toml_path = dir.join("capture.toml");
+        let config: CaptureConfig = if toml_path.exists() {
+            let text = std::fs::read_to_string(&toml_path).map_err(|e| CaptureError::io(&toml_path, e))?;
+            toml::from_str(&text).map_err(|e| {
+                CaptureError::invalid(&toml_path, "capture.toml", "valid TOML with known keys", e.message().to_string())
+            })?
+        } else {
+            CaptureConfig::default()
+        };
+        if !(config.hop_s.is_finite() && config.hop_s > 0.0) {
+            return Err(CaptureError::invalid(&toml_path, "hop_s", "a frame shift > 0 seconds", format!("{}", config.hop_s)));
+        }
+        let name = config.name.clone().unwrap_or_else(|| {
+            dir.canonicalize()
+                .ok()
+                .and_then(|p| p.file_name().map(|s| s.to_string_lossy().into_owned()))
+                .unwrap_or_else(|| dir.display().to_string())
+        });
+
+        let layers = find_layers(dir, &config)?;
+        let mut label_opts = opts.labels.clone();
+        if label_opts.columns.is_empty() {
+            label_opts.columns = config.label_columns.clone();
+        }
+        let cols = labels::Columns { utterance: &config.utterance_column, speaker: &config.speaker_column };
+        let frames_tsv = dir.join("frames.tsv");
+        let (utt_tsv, seg_tsv) = (dir.join("utterances.tsv"), dir.join("segments.tsv"));
+        let (mut frames, label_source) = if frames_tsv.exists() {
+            (labels::read_frames_tsv(&frames_tsv, &cols, &label_opts)?, "frames.tsv".to_string())
+        } else if utt_tsv.exists() && seg_tsv.exists() {
+            let timing = Timing { hop_s: config.hop_s, win_s: config.win_s.unwrap_or(config.hop_s) };
+            (
+                labels::read_segments(&utt_tsv, &seg_tsv, &cols, &config.segment_label, timing, &label_opts)?,
+                "utterances.tsv + segments.tsv".to_string(),
+            )
+        } else {
+            return Err(CaptureError::invalid(
+                dir,
+                "labels",
+                "frames.tsv, or utterances.tsv with segments.tsv",
+                "neither",
+            ));
+        };
+        // Agreement between layers and labels.
+        let n = frames.n_frames();
+        for l in &layers {
+            if l.frames() != n {
+                let first = &layers[0];
+                let found = if first.frames() != l.frames() {
+                    format!(
+                        "{} frames, while {} has {}",
+                        l.frames(),
+                        first.path().display(),
+                        first.frames()
+                    )
+                } else {
+                    format!("{} frames", l.frames())
+                };
+                return Err(CaptureError::invalid(
+                    l.path(),
+                    "frames",
+                    format!("{n} frames (rows of the label table {label_source})"),
+                    found,
+                ));
+            }
+            if l.dim() == 0 {
+                return Err(CaptureError::invalid(l.path(), "dim", "at least one feature", "0"));
+            }
+        }
+        let mut cap = Capture {
+            dir: dir.to_path_buf(),
+            name,
+            config,
+            layers,
+            frames,
+            nonfinite_frames: vec![],
+            label_source,
+        };
+        if opts.allow_nonfinite {
+            let bad = cap.scan_nonfinite_frames();
+            if bad.iter().any(|&b| b) {
+                frames = std::mem::replace(&mut cap.frames, empty_table());
+                frames.mask_frames(&bad);
+                cap.frames = frames;
+                cap.nonfinite_frames = bad.iter().enumerate().filter(|(_, &b)| b).map(|(i, _)| i).collect();
+            }
+        }
+        Ok(cap)
+    }
+
+    /// Number of frames.
+    pub fn n_frames(&self) -> usize {
+        self.frames.n_frames()
+    }
+
+    /// Index into `layers` of the layer numbered `id`.
+    pub fn layer_index(&self, id: usize) -> Option<usize> {
+        self.layers.iter().position(|l| l.id == id)
+    }
+
+    /// Read layer `i` (index into `layers`) as f32, checking every value is finite unless the
+    /// capture was opened with `allow_nonfinite` (then those frames are zeroed; they carry no
+    /// labels and are left out of analyses).
+    pub fn read_layer(&self, i: usize) -> Result<Array2<f32>, CaptureError> {
+        let l = &self.layers[i];
+        let mut m = l.file.read_layer(l.slot);
+        l.file.release();
+        self.check_finite(i, &mut m, None)?;
+        Ok(m)
+    }
+
+    /// Read the given frames (rows) of layer `i`.
+    pub fn read_layer_rows(&self, i: usize, rows: &[usize]) -> Result<Array2<f32>, CaptureError> {
+        let l = &self.layers[i];
+        if let Some(&r) = rows.iter().find(|&&r| r >= l.frames()) {
+            return Err(CaptureError::invalid(l.path(), "frame index", format!("< {}", l.frames()), format!("{r}")));
+        }
+        let mut m = l.file.read_rows(l.slot, rows);
+        l.file.release();
+        self.check_finite(i, &mut m, Some(rows))?;
+        Ok(m)
+    }
+
+    fn check_finite(&self, i: usize, m: &mut Array2<f32>, rows: Option<&[usize]>) -> Result<(), CaptureError> {
+        let l = &self.layers[i];
+        for (r, mut row) in m.outer_iter_mut().enumerate() {
+            if let Some(c) = row.iter().position(|v| !v.is_finite()) {
+                let frame = rows.map(|x| x[r]).unwrap_or(r);
+                if self.nonfinite_frames.binary_search(&frame).is_ok() {
+                    row.fill(0.0);
+                    continue;
+                }
+                return Err(CaptureError::invalid(
+                    l.path(),
+                    &format!("frame {frame}, column {c}"),
+                    "finite values (use --allow-nonfinite to drop such frames)",
+                    format!("{}", row[c]),
+                ));
+            }
+        }
+        Ok(())
+    }
+
+    /// Full scan of every layer for NaN/Inf; returns a per-frame flag.
+    pub fn scan_nonfinite_frames(&self) -> Vec<bool> {
+        let mut bad = vec![false; self.n_frames()];
+        for l in &self.layers {
+            let m = l.file.read_layer(l.slot);
+            l.file.release();
+            for (r, row) in m.outer_iter().enumerate() {
+                if row.iter().any(|v| !v.is_finite()) {
+                    bad[r] = true;
+                }
+            }
+        }
+        bad
+    }
+
+    /// Evenly spaced sample of up to `max_rows` frames of layer `i`, without the finiteness
+    /// check (for scans that report problems rather than fail on them).
+    pub fn sample_layer_raw(&self, i: usize, max_rows: usize) -> (Vec<usize>, Array2<f32>) {
+        let l = &self.layers[i];
+        let out = l.file.sample_rows(l.slot, max_rows);
+        l.file.release();
+        out
+    }
+
+    /// Total size of the layer files on disk.
+    pub fn bytes_on_disk(&self) -> u64 {
+        let mut seen = std::collections::BTreeSet::new();
+        self.layers
+            .iter()
+            .filter(|l| seen.insert(l.path().to_path_buf()))
+            .map(|l| l.file.file_len())
+            .sum()
+    }
+
+    /// Resolve a layer selection (layer numbers) into indices into `layers`.
+    pub fn select_layers(&self, sel: Option<&LayerSelection>) -> Result<Vec<usize>, CaptureError> {
+        match sel {
+            None => Ok((0..self.layers.len()).collect()),
+            Some(s) => {
+                let mut out = Vec::new();
+                for &id in &s.0 {
+                    let i = self.layer_index(id).ok_or_else(|| {
+                        CaptureError::invalid(
+                            &self.dir,
+                            "--layers",
+                            format!(
+                                "layer numbers present in the capture ({})",
+                                self.layers.iter().map(|l| l.id.to_string()).collect::<Vec<_>>().join(",")
+                            ),
+                            format!("{id}"),
+                        )
+                    })?;
+                    out.push(i);
+                }
+                Ok(out)
+            }
+        }
+    }
+}
+
+fn empty_table() -> FrameTable {
+    FrameTable {
+        utterances: vec![],
+        utt_speaker: vec![],
+        speakers: vec![],
+        frame_utt: vec![],
+        frame_pos: vec![],
+        tasks: vec![],
+    }
+}
+
+fn find_layers(dir: &Path, config: &CaptureConfig) -> Result<Vec<LayerSource>, CaptureError> {
+    let mut entries: Vec<(usize, PathBuf)> = Vec::new();
+    let mut npys: Vec<PathBuf> = Vec::new();
+    let rd = std::fs::read_dir(dir).map_err(|e| CaptureError::io(dir, e))?;
+    for e in rd {
+        let e = e.map_err(|e| CaptureError::io(dir, e))?;
+        let name = e.file_name().to_string_lossy().into_owned();
+        if name.ends_with(".npy") {
+            npys.push(e.path());
+        }
+        if let Some(id) = match_pattern(&config.layer_pattern, &name) {
+            entries.push((id, e.path()));
+        }
+    }
+    let stack = match &config.stack_file {
+        Some(s) => Some(dir.join(s)),
+        None if entries.is_empty() && npys.len() == 1 => Some(npys[0].clone()),
+        None => None,
+    };
+    if let Some(p) = stack.filter(|_| entries.is_empty() || config.stack_file.is_some()) {
+        let f = std::sync::Arc::new(NpyFile::open(&p)?);
+        if f.header().shape.len() != 3 {
+            return Err(CaptureError::invalid(
+                &p,
+                "shape",
+                "a 3-D (layers, frames, dim) array for a single-file capture",
+                format!("{:?}", f.header().shape),
+            ));
+        }
+        let (l, _, _) = f.layer_shape();
+        if l == 0 {
+            return Err(CaptureError::invalid(&p, "shape", "at least one layer", "0 layers"));
+        }
+        return Ok((0..l).map(|i| LayerSource { id: i, file: f.clone(), slot: i }).collect());
+    }
+    if entries.is_empty() {
+        return Err(CaptureError::invalid(
+            dir,
+            "layer files",
+            format!("files named like '{}' (or one 3-D .npy stack)", config.layer_pattern),
+            if npys.is_empty() { "no .npy files".to_string() } else { format!("{} other .npy files", npys.len()) },
+        ));
+    }
+    entries.sort();
+    for w in entries.windows(2) {
+        if w[0].0 == w[1].0 {
+            return Err(CaptureError::invalid(
+                &w[1].1,
+                "layer number",
+                "one file per layer number",
+                format!("layer {} also in {}", w[0].0, w[0].1.display()),
+            ));
+        }
+    }
+    let mut out = Vec::with_capacity(entries.len());
+    for (id, p) in entries {
+        let f = NpyFile::open(&p)?;
+        if f.header().shape.len() != 2 {
+            return Err(CaptureError::invalid(
+                &p,
+                "shape",
+                "a 2-D (frames, dim) array",
+                format!("{}-D {:?}", f.header().shape.len(), f.header().shape),
+            ));
+        }
+        out.push(LayerSource { id, file: std::sync::Arc::new(f), slot: 0 });
+    }
+    Ok(out)
+}
+
+/// A set of layer numbers parsed from `0,4-8`.
+#[derive(Clone, Debug, PartialEq, Eq)]
+pub struct LayerSelection(pub Vec<usize>);
+
+impl std::str::FromStr for LayerSelection {
+    type Err = String;
+    fn from_str(s: &str) -> Result<Self, String> {
+        let mut out = Vec::new();
+        for part in s.split(',').map(str::trim).filter(|p| !p.is_empty()) {
+            let num = |x: &str| x.trim().parse::<usize>().map_err(|_| format!("'{x}' is not a layer number"));
+            if let Some((a, b)) = part.split_once('-') {
+                let (a, b) = (num(a)?, num(b)?);
+                if b < a {
+                    return Err(format!("range '{part}' runs backwards"));
+                }
+                if b - a > 100_000 {
+                    return Err(format!("range '{part}' is too long"));
+                }
+                out.extend(a..=b);
+            } else {
+                out.push(num(part)?);
+            }
+        }
+        if out.is_empty() {
+            return Err("no layers given".into());
+        }
+        out.sort();
+        out.dedup();
+        Ok(LayerSelection(out))
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn layer_pattern_takes_any_zero_padding() {
+        assert_eq!(match_pattern("layer_{}.npy", "layer_007.npy"), Some(7));
+        assert_eq!(match_pattern("layer_{}.npy", "layer_12.npy"), Some(12));
+        assert_eq!(match_pattern("layer_{}.npy", "layer_x.npy"), None);
+        assert_eq!(match_pattern("enc.*.npy", "enc.3.npy"), Some(3));
+    }
+
+    #[test]
+    fn layer_selection_parses_ranges() {
+        let s: LayerSelection = "0,4-6,2".parse().unwrap();
+        assert_eq!(s.0, vec![0, 2, 4, 5, 6]);
+        assert!("3-1".parse::<LayerSelection>().is_err());
+        assert!("a".parse::<LayerSelection>().is_err());
+    }
+}

@@ -1,0 +1,43 @@
+//! The one place where stage errors become the CLI's exit codes: 2 for bad input (the user
+//! can fix it), 1 for internal failure.
+
+use crate::capture::CaptureError;
+use crate::output::OutputError;
+use crate::plot::PlotError;
+
+/// Any error the library returns to the CLI.
+#[derive(Debug, thiserror::Error)]
+pub enum Error {
+    /// Reading a capture failed.
+    #[error(transparent)]
+    Capture(#[from] CaptureError),
+    /// Writing outputs failed.
+    #[error(transparent)]
+    Output(#[from] OutputError),
+    /// Drawing failed.
+    #[error(transparent)]
+    Plot(#[from] PlotError),
+    /// Bad input found by an analysis (options that do not fit the data).
+    #[error("{0}")]
+    Input(String),
+    /// A command that is not built yet.
+    #[error("'{0}' is not yet available in this version")]
+    NotYet(&'static str),
+    /// Anything else that went wrong inside.
+    #[error("internal error: {0}")]
+    Internal(String),
+}
+
+impl Error {
+    /// Exit code: 2 for bad input, 1 for internal failure.
+    pub fn exit_code(&self) -> i32 {
+        match self {
+            Error::Capture(_) | Error::Input(_) => 2,
+            Error::Output(OutputError::Refused { .. }) => 2,
+            Error::Output(_) | Error::Plot(_) | Error::NotYet(_) | Error::Internal(_) => 1,
+        }
+    }
+}
+
+/// Result with the library's error.
+pub type Result<T> = std::result::Result<T, Error>;

@@ -1,0 +1,35 @@
+//! voxstrata: layer-by-layer analysis of a speech model's per-frame activations.
+//!
+//! Pipeline: [`capture`] (read layers and labels) → [`select`] (filters, pooling, splits)
+//! → analyses (probe, map, purity, compare) → tidy records ([`output`]) → pictures
+//! ([`plot`]) and the report. See `docs/design.md`.
+
+pub mod capture;
+pub mod error;
+pub mod inspect;
+pub mod linalg;
+pub mod output;
+pub mod plot;
+pub mod progress;
+pub mod select;
+
+pub use capture::{Capture, CaptureError, OpenOptions};
+pub use error::{Error, Result};
+pub use progress::Progress;
+
+/// Options shared by every analysis command.
+#[derive(Clone, Debug)]
+pub struct CommonOptions {
+    /// Seed for every random choice.
+    pub seed: u64,
+    /// Worker threads (0: all cores). Results do not depend on it.
+    pub threads: usize,
+    /// Layer numbers to analyse (None: all).
+    pub layers: Option<capture::LayerSelection>,
+}
+
+impl Default for CommonOptions {
+    fn default() -> Self {
+        CommonOptions { seed: 0, threads: 0, layers: None }
+    }
+}

@@ -1,0 +1,139 @@
+//! Command-line front end: parse, call the library, print. Exit codes: 0 success,
+//! 2 bad input, 1 internal failure.
+
+use std::path::PathBuf;
+use std::process::ExitCode;
+
+use clap::{Args, Parser, Subcommand};
+use voxstrata::capture::{LabelOptions, LayerSelection};
+use voxstrata::{Capture, CommonOptions, Error, OpenOptions, Progress};
+
+#[derive(Parser, Debug)]
+#[command(name = "voxstrata", version, about = "What each layer of a speech model encodes: probes, maps, cluster purity and checkpoint comparison")]
+struct Cli {
+    #[command(subcommand)]
+    command: Command,
+    /// Seed for every random choice.
+    #[arg(long, global = true, default_value_t = 0)]
+    seed: u64,
+    /// Worker threads (0: all cores); results do not depend on it.
+    #[arg(long, global = true, default_value_t = 0)]
+    threads: usize,
+    /// Layers to analyse, by number: e.g. 0,4-8.
+    #[arg(long, global = true)]
+    layers: Option<LayerSelection>,
+    /// No progress on stderr.
+    #[arg(long, global = true)]
+    quiet: bool,
+}
+
+#[derive(Args, Debug, Clone)]
+struct CaptureArgs {
+    /// Treat this label value as unlabelled (repeatable), e.g. --drop-label sil.
+    #[arg(long = "drop-label", value_name = "LABEL")]
+    drop_label: Vec<String>,
+    /// Two-column TSV (from, to) merging label values before analysis.
+    #[arg(long = "merge-labels", value_name = "FILE")]
+    merge_labels: Option<PathBuf>,
+    /// Drop frames holding NaN or Inf instead of stopping (needs a full scan).
+    #[arg(long)]
+    allow_nonfinite: bool,
+}
+
+#[derive(Subcommand, Debug)]
+enum Command {
+    /// Summarise a capture: layers, frames, speakers, label tasks, warnings.
+    Inspect {
+        /// Capture folder.
+        capture: PathBuf,
+        /// Print JSON instead of text.
+        #[arg(long)]
+        json: bool,
+        #[command(flatten)]
+        cap: CaptureArgs,
+    },
+    /// Linear probes per layer and label task.
+    Probe {
+        /// Capture folder.
+        capture: PathBuf,
+        #[command(flatten)]
+        cap: CaptureArgs,
+    },
+    /// 2-D maps (t-SNE or PCA) and cluster purity per layer.
+    Map {
+        /// Capture folder.
+        capture: PathBuf,
+        #[command(flatten)]
+        cap: CaptureArgs,
+    },
+    /// Compare two captures of the same frames layer by layer.
+    Compare {
+        /// First capture.
+        capture_a: PathBuf,
+        /// Second capture.
+        capture_b: PathBuf,
+        #[command(flatten)]
+        cap: CaptureArgs,
+    },
+    /// Run everything and write one HTML report.
+    Report {
+        /// One or two captures (none: the shipped demo).
+        captures: Vec<PathBuf>,
+        #[command(flatten)]
+        cap: CaptureArgs,
+    },
+    /// Build the demo scenario and write its two captures.
+    Demo {
+        /// Output folder.
+        #[arg(long)]
+        out: PathBuf,
+    },
+}
+
+fn open_options(c: &CaptureArgs) -> Result<OpenOptions, Error> {
+    let mut labels = LabelOptions { drop: c.drop_label.clone(), ..Default::default() };
+    if let Some(p) = &c.merge_labels {
+        labels.merge = voxstrata::capture::labels::read_merge_map(p)?;
+    }
+    Ok(OpenOptions { labels, allow_nonfinite: c.allow_nonfinite })
+}
+
+fn run(cli: Cli) -> Result<(), Error> {
+    let common = CommonOptions { seed: cli.seed, threads: cli.threads, layers: cli.layers.clone() };
+    let _progress = Progress::new(cli.quiet);
+    if common.threads > 0 {
+        rayon::ThreadPoolBuilder::new()
+            .num_threads(common.threads)
+            .build_global()
+            .map_err(|e| Error::Internal(e.to_string()))?;
+    }
+    match cli.command {
+        Command::Inspect { capture, json, cap } => {
+            let c = Capture::open(&capture, &open_options(&cap)?)?;
+            let s = voxstrata::inspect::summarise(&c);
+            if json {
+                let text = serde_json::to_string_pretty(&s).map_err(|e| Error::Internal(e.to_string()))?;
+                println!("{text}");
+            } else {
+                print!("{}", voxstrata::inspect::render_text(&s));
+            }
+            Ok(())
+        }
+        Command::Probe { .. } => Err(Error::NotYet("probe")),
+        Command::Map { .. } => Err(Error::NotYet("map")),
+        Command::Compare { .. } => Err(Error::NotYet("compare")),
+        Command::Report { .. } => Err(Error::NotYet("report")),
+        Command::Demo { .. } => Err(Error::NotYet("demo")),
+    }
+}
+
+fn main() -> ExitCode {
+    let cli = Cli::parse();
+    match run(cli) {
+        Ok(()) => ExitCode::SUCCESS,
+        Err(e) => {
+            eprintln!("voxstrata: {e}");
+            ExitCode::from(e.exit_code() as u8)
+        }
+    }
+}

@@ -1,0 +1,115 @@
+//! Plot infrastructure shared by every figure: the embedded font (DejaVu Sans, which covers
+//! IPA), colours computed in the OKLab perceptual space (Ottosson 2020) as evenly spaced hues,
+//! our own sequential ramp for heatmaps, and a helper that draws one figure to both PNG and
+//! SVG. Figures themselves live beside this file, one module per analysis.
+
+pub mod palette;
+
+use std::path::{Path, PathBuf};
+use std::sync::Once;
+
+use plotters::coord::Shift;
+use plotters::prelude::*;
+
+pub use palette::{category_colours, ramp, Rgb};
+
+/// The embedded font, registered under the family name [`FONT`].
+static FONT_BYTES: &[u8] = include_bytes!("../../assets/fonts/DejaVuSans.ttf");
+/// Family name under which the embedded font is registered.
+pub const FONT: &str = "sans-serif";
+
+static REGISTER: Once = Once::new();
+
+/// Register the embedded font with plotters (idempotent).
+pub fn register_font() {
+    REGISTER.call_once(|| {
+        // The font is compiled in and known good; failure here would be a build defect.
+        let _ = plotters::style::register_font(FONT, FontStyle::Normal, FONT_BYTES);
+        let _ = plotters::style::register_font(FONT, FontStyle::Bold, FONT_BYTES);
+    });
+}
+
+/// Errors while drawing (always internal: exit code 1).
+#[derive(Debug, thiserror::Error)]
+#[error("{path}: drawing failed: {message}")]
+pub struct PlotError {
+    /// The picture.
+    pub path: PathBuf,
+    /// What went wrong.
+    pub message: String,
+}
+
+/// A figure that can draw itself onto any plotters backend.
+pub trait Figure {
+    /// Size in pixels (width, height).
+    fn size(&self) -> (u32, u32);
+    /// Draw onto `area`.
+    fn draw<DB: DrawingBackend>(&self, area: &DrawingArea<DB, Shift>) -> Result<(), String>;
+}
+
+/// Draw `fig` to `<stem>.png` and `<stem>.svg`, each written atomically.
+pub fn save<F: Figure>(fig: &F, stem: &Path) -> Result<(), PlotError> {
+    register_font();
+    let (w, h) = fig.size();
+    let png_path = stem.with_extension("png");
+    let svg_path = stem.with_extension("svg");
+    let err = |p: &Path, m: String| PlotError { path: p.to_path_buf(), message: m };
+    // PNG: render into a pixel buffer, encode, write atomically.
+    let mut buf = vec![0u8; (w as usize) * (h as usize) * 3];
+    {
+        let backend = BitMapBackend::with_buffer(&mut buf, (w, h));
+        let area = backend.into_drawing_area();
+        area.fill(&WHITE).map_err(|e| err(&png_path, e.to_string()))?;
+        fig.draw(&area).map_err(|m| err(&png_path, m))?;
+        area.present().map_err(|e| err(&png_path, e.to_string()))?;
+    }
+    let png = encode_png(&buf, w, h).map_err(|m| err(&png_path, m))?;
+    crate::output::write_atomic(&png_path, &png).map_err(|e| err(&png_path, e.to_string()))?;
+    // SVG: render into a string.
+    let mut svg = String::new();
+    {
+        let backend = SVGBackend::with_string(&mut svg, (w, h));
+        let area = backend.into_drawing_area();
+        area.fill(&WHITE).map_err(|e| err(&svg_path, e.to_string()))?;
+        fig.draw(&area).map_err(|m| err(&svg_path, m))?;
+        area.present().map_err(|e| err(&svg_path, e.to_string()))?;
+    }
+    crate::output::write_atomic(&svg_path, svg.as_bytes()).map_err(|e| err(&svg_path, e.to_string()))
+}
+
+/// Render `fig` to an SVG string (for inlining in the HTML report).
+pub fn to_svg<F: Figure>(fig: &F) -> Result<String, String> {
+    register_font();
+    let (w, h) = fig.size();
+    let mut svg = String::new();
+    {
+        let backend = SVGBackend::with_string(&mut svg, (w, h));
+        let area = backend.into_drawing_area();
+        area.fill(&WHITE).map_err(|e| e.to_string())?;
+        fig.draw(&area)?;
+        area.present().map_err(|e| e.to_string())?;
+    }
+    Ok(svg)
+}
+
+fn encode_png(rgb: &[u8], w: u32, h: u32) -> Result<Vec<u8>, String> {
+    let mut out = Vec::new();
+    {
+        let mut enc = png::Encoder::new(&mut out, w, h);
+        enc.set_color(png::ColorType::Rgb);
+        enc.set_depth(png::BitDepth::Eight);
+        let mut wr = enc.write_header().map_err(|e| e.to_string())?;
+        wr.write_image_data(rgb).map_err(|e| e.to_string())?;
+    }
+    Ok(out)
+}
+
+/// Text style in the embedded font.
+pub fn text(size: f64) -> TextStyle<'static> {
+    (FONT, size).into_font().into()
+}
+
+/// Map any drawing error to a string (for `?` inside [`Figure::draw`]).
+pub fn e2s<E: std::fmt::Display>(e: E) -> String {
+    e.to_string()
+}
