@@ -11,6 +11,7 @@ pub mod linalg;
 pub mod output;
 pub mod plot;
 pub mod progress;
+pub mod report;
 pub mod select;
 
 pub use capture::{Capture, CaptureError, OpenOptions};

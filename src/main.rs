@@ -79,6 +79,12 @@ enum Command {
     Report {
         /// One or two captures (none: the shipped demo).
         captures: Vec<PathBuf>,
+        /// Output folder (index.html, run.json and every analysis's records and figures).
+        #[arg(long, default_value = "voxstrata-report")]
+        out: PathBuf,
+        /// Write into an output folder that already holds files.
+        #[arg(long)]
+        force: bool,
         #[command(flatten)]
         cap: CaptureArgs,
     },
@@ -100,7 +106,7 @@ fn open_options(c: &CaptureArgs) -> Result<OpenOptions, Error> {
 
 fn run(cli: Cli) -> Result<(), Error> {
     let common = CommonOptions { seed: cli.seed, threads: cli.threads, layers: cli.layers.clone() };
-    let _progress = Progress::new(cli.quiet);
+    let progress = Progress::new(cli.quiet);
     if common.threads > 0 {
         rayon::ThreadPoolBuilder::new()
             .num_threads(common.threads)
@@ -122,7 +128,15 @@ fn run(cli: Cli) -> Result<(), Error> {
         Command::Probe { .. } => Err(Error::NotYet("probe")),
         Command::Map { .. } => Err(Error::NotYet("map")),
         Command::Compare { .. } => Err(Error::NotYet("compare")),
-        Command::Report { .. } => Err(Error::NotYet("report")),
+        Command::Report { captures, out, force, cap } => {
+            let opts = voxstrata::report::ReportOptions { out, force, common, open: open_options(&cap)? };
+            let rec = voxstrata::report::run(&captures, &opts, &progress)?;
+            if !cli.quiet {
+                let total = rec.timings.last().map(|t| t.seconds).unwrap_or(0.0);
+                eprintln!("voxstrata: report written to {} ({total:.1} s)", opts.out.join("index.html").display());
+            }
+            Ok(())
+        }
         Command::Demo { .. } => Err(Error::NotYet("demo")),
     }
 }
