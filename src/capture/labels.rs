@@ -53,7 +53,11 @@ impl LabelTask {
                 }),
             })
             .collect();
-        LabelTask { name: name.to_string(), classes, codes }
+        LabelTask {
+            name: name.to_string(),
+            classes,
+            codes,
+        }
     }
 }
 
@@ -82,7 +86,10 @@ impl FrameTable {
 
     /// Speaker index of each frame.
     pub fn frame_speaker(&self) -> Vec<u32> {
-        self.frame_utt.iter().map(|&u| self.utt_speaker[u as usize]).collect()
+        self.frame_utt
+            .iter()
+            .map(|&u| self.utt_speaker[u as usize])
+            .collect()
     }
 
     /// The task of that name.
@@ -126,18 +133,28 @@ pub struct Columns<'a> {
     pub speaker: &'a str,
 }
 
+/// A parsed table: header fields and rows, each with its 1-based line number.
+pub type Table = (Vec<String>, Vec<(usize, Vec<String>)>);
+
 /// Read a tab-separated table: header fields and rows, with row numbers for errors.
 /// Rows are 1-based file lines (the header is line 1).
-pub fn read_tsv(path: &Path) -> Result<(Vec<String>, Vec<(usize, Vec<String>)>), CaptureError> {
+pub fn read_tsv(path: &Path) -> Result<Table, CaptureError> {
     let bytes = std::fs::read(path).map_err(|e| CaptureError::io(path, e))?;
     let text = std::str::from_utf8(&bytes).map_err(|e| {
-        let line = bytes[..e.valid_up_to()].iter().filter(|&&b| b == b'\n').count() + 1;
+        let line = bytes[..e.valid_up_to()]
+            .iter()
+            .filter(|&&b| b == b'\n')
+            .count()
+            + 1;
         CaptureError::Table {
             path: path.to_path_buf(),
             row: line,
             field: "text".into(),
             expected: "UTF-8 text".into(),
-            found: format!("a byte that is not UTF-8 at byte offset {}", e.valid_up_to()),
+            found: format!(
+                "a byte that is not UTF-8 at byte offset {}",
+                e.valid_up_to()
+            ),
         }
     })?;
     let text = text.strip_prefix('\u{feff}').unwrap_or(text);
@@ -165,7 +182,11 @@ pub fn read_tsv(path: &Path) -> Result<(Vec<String>, Vec<(usize, Vec<String>)>),
                 path: path.to_path_buf(),
                 row: line,
                 field: "row".into(),
-                expected: format!("{} tab-separated fields ({})", header.len(), header.join(", ")),
+                expected: format!(
+                    "{} tab-separated fields ({})",
+                    header.len(),
+                    header.join(", ")
+                ),
                 found: format!("{} fields", fields.len()),
             });
         }
@@ -175,13 +196,16 @@ pub fn read_tsv(path: &Path) -> Result<(Vec<String>, Vec<(usize, Vec<String>)>),
 }
 
 fn column(path: &Path, header: &[String], name: &str) -> Result<usize, CaptureError> {
-    header.iter().position(|h| h == name).ok_or_else(|| CaptureError::Table {
-        path: path.to_path_buf(),
-        row: 1,
-        field: name.into(),
-        expected: format!("a column named '{name}'"),
-        found: format!("columns {}", header.join(", ")),
-    })
+    header
+        .iter()
+        .position(|h| h == name)
+        .ok_or_else(|| CaptureError::Table {
+            path: path.to_path_buf(),
+            row: 1,
+            field: name.into(),
+            expected: format!("a column named '{name}'"),
+            found: format!("columns {}", header.join(", ")),
+        })
 }
 
 struct Builder {
@@ -231,7 +255,10 @@ fn speaker_task(b: &Builder, frame_utt: &[u32]) -> LabelTask {
     LabelTask {
         name: "speaker".into(),
         classes: b.speakers.clone(),
-        codes: frame_utt.iter().map(|&u| b.utt_speaker[u as usize]).collect(),
+        codes: frame_utt
+            .iter()
+            .map(|&u| b.utt_speaker[u as usize])
+            .collect(),
     }
 }
 
@@ -244,7 +271,9 @@ pub fn read_frames_tsv(
     let (header, rows) = read_tsv(path)?;
     let ucol = column(path, &header, cols.utterance)?;
     let scol = column(path, &header, cols.speaker)?;
-    let mut task_cols: Vec<usize> = (0..header.len()).filter(|&c| c != ucol && c != scol).collect();
+    let mut task_cols: Vec<usize> = (0..header.len())
+        .filter(|&c| c != ucol && c != scol)
+        .collect();
     if !opts.columns.is_empty() {
         for want in &opts.columns {
             if want != "speaker" {
@@ -265,7 +294,8 @@ pub fn read_frames_tsv(
     let mut b = Builder::new();
     let mut frame_utt = Vec::with_capacity(rows.len());
     let mut frame_pos = Vec::with_capacity(rows.len());
-    let mut values: Vec<Vec<Option<String>>> = vec![Vec::with_capacity(rows.len()); task_cols.len()];
+    let mut values: Vec<Vec<Option<String>>> =
+        vec![Vec::with_capacity(rows.len()); task_cols.len()];
     for (line, f) in &rows {
         let utt = &f[ucol];
         let spk = &f[scol];
@@ -273,7 +303,11 @@ pub fn read_frames_tsv(
             return Err(CaptureError::Table {
                 path: path.to_path_buf(),
                 row: *line,
-                field: if utt.is_empty() { cols.utterance.into() } else { cols.speaker.into() },
+                field: if utt.is_empty() {
+                    cols.utterance.into()
+                } else {
+                    cols.speaker.into()
+                },
                 expected: "a non-empty name".into(),
                 found: "an empty field".into(),
             });
@@ -391,7 +425,8 @@ pub fn read_segments(
         b.utterances.push(f[ucol].clone());
         b.utt_speaker.push(s);
         b.utt_len.push(n);
-        b.utt_index.insert(f[ucol].clone(), (b.utterances.len() - 1) as u32);
+        b.utt_index
+            .insert(f[ucol].clone(), (b.utterances.len() - 1) as u32);
     }
 
     let (sh, srows) = read_tsv(seg_path)?;
@@ -544,11 +579,17 @@ mod tests {
 
     fn write(dir: &Path, name: &str, text: &str) -> std::path::PathBuf {
         let p = dir.join(name);
-        std::fs::File::create(&p).unwrap().write_all(text.as_bytes()).unwrap();
+        std::fs::File::create(&p)
+            .unwrap()
+            .write_all(text.as_bytes())
+            .unwrap();
         p
     }
 
-    const COLS: Columns = Columns { utterance: "utterance", speaker: "speaker" };
+    const COLS: Columns = Columns {
+        utterance: "utterance",
+        speaker: "speaker",
+    };
 
     /// Hand-worked example (common practice: 25 ms window, 10 ms hop). Frame i covers
     /// [10i, 10i + 25) ms, so its centre is 10i + 12.5 ms:
@@ -558,7 +599,11 @@ mod tests {
     #[test]
     fn segments_map_to_frames_by_centre_time() {
         let d = tempfile::tempdir().unwrap();
-        let u = write(d.path(), "utterances.tsv", "utterance\tspeaker\tframes\nu1\tA\t6\n");
+        let u = write(
+            d.path(),
+            "utterances.tsv",
+            "utterance\tspeaker\tframes\nu1\tA\t6\n",
+        );
         let s = write(
             d.path(),
             "segments.tsv",
@@ -569,7 +614,10 @@ mod tests {
             &s,
             &COLS,
             "phone",
-            Timing { hop_s: 0.010, win_s: 0.025 },
+            Timing {
+                hop_s: 0.010,
+                win_s: 0.025,
+            },
             &LabelOptions::default(),
         )
         .unwrap();
@@ -577,7 +625,13 @@ mod tests {
         let got: Vec<&str> = ph
             .codes
             .iter()
-            .map(|&c| if c == UNLABELLED { "-" } else { ph.classes[c as usize].as_str() })
+            .map(|&c| {
+                if c == UNLABELLED {
+                    "-"
+                } else {
+                    ph.classes[c as usize].as_str()
+                }
+            })
             .collect();
         assert_eq!(got, vec!["sil", "sil", "a", "a", "s", "-"]);
     }
@@ -585,14 +639,28 @@ mod tests {
     #[test]
     fn overlapping_segments_name_the_row() {
         let d = tempfile::tempdir().unwrap();
-        let u = write(d.path(), "utterances.tsv", "utterance\tspeaker\tframes\nu1\tA\t6\n");
+        let u = write(
+            d.path(),
+            "utterances.tsv",
+            "utterance\tspeaker\tframes\nu1\tA\t6\n",
+        );
         let s = write(
             d.path(),
             "segments.tsv",
             "utterance\tstart_s\tend_s\tlabel\nu1\t0.0\t0.03\tsil\nu1\t0.02\t0.05\ta\n",
         );
-        let e = read_segments(&u, &s, &COLS, "phone", Timing { hop_s: 0.01, win_s: 0.01 }, &LabelOptions::default())
-            .unwrap_err();
+        let e = read_segments(
+            &u,
+            &s,
+            &COLS,
+            "phone",
+            Timing {
+                hop_s: 0.01,
+                win_s: 0.01,
+            },
+            &LabelOptions::default(),
+        )
+        .unwrap_err();
         let m = e.to_string();
         assert!(m.contains("row 3") && m.contains("overlap"), "{m}");
     }
@@ -600,9 +668,18 @@ mod tests {
     #[test]
     fn wrong_field_count_names_the_row() {
         let d = tempfile::tempdir().unwrap();
-        let p = write(d.path(), "frames.tsv", "utterance\tspeaker\tphone\nu\ts\ta\nu\ts\n");
-        let m = read_frames_tsv(&p, &COLS, &LabelOptions::default()).unwrap_err().to_string();
-        assert!(m.contains("row 3") && m.contains("3 tab-separated fields"), "{m}");
+        let p = write(
+            d.path(),
+            "frames.tsv",
+            "utterance\tspeaker\tphone\nu\ts\ta\nu\ts\n",
+        );
+        let m = read_frames_tsv(&p, &COLS, &LabelOptions::default())
+            .unwrap_err()
+            .to_string();
+        assert!(
+            m.contains("row 3") && m.contains("3 tab-separated fields"),
+            "{m}"
+        );
     }
 
     #[test]
@@ -613,7 +690,10 @@ mod tests {
             "frames.tsv",
             "utterance\tspeaker\tphone\nu\tsil\tsil\nu\tsil\taa\nu\tsil\tao\n",
         );
-        let mut o = LabelOptions { drop: vec!["sil".into()], ..Default::default() };
+        let mut o = LabelOptions {
+            drop: vec!["sil".into()],
+            ..Default::default()
+        };
         o.merge.insert("ao".into(), "aa".into());
         let t = read_frames_tsv(&p, &COLS, &o).unwrap();
         let ph = t.task("phone").unwrap();
