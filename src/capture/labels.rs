@@ -39,26 +39,6 @@ impl LabelTask {
     pub fn n_unlabelled(&self) -> usize {
         self.codes.iter().filter(|&&k| k == UNLABELLED).count()
     }
-
-    fn from_strings(name: &str, values: Vec<Option<String>>) -> LabelTask {
-        let mut index: HashMap<String, u32> = HashMap::new();
-        let mut classes = Vec::new();
-        let codes = values
-            .into_iter()
-            .map(|v| match v {
-                None => UNLABELLED,
-                Some(s) => *index.entry(s.clone()).or_insert_with(|| {
-                    classes.push(s);
-                    (classes.len() - 1) as u32
-                }),
-            })
-            .collect();
-        LabelTask {
-            name: name.to_string(),
-            classes,
-            codes,
-        }
-    }
 }
 
 /// Everything known about the frames of a capture apart from the activations.
@@ -136,11 +116,8 @@ pub struct Columns<'a> {
 /// A parsed table: header fields and rows, each with its 1-based line number.
 pub type Table = (Vec<String>, Vec<(usize, Vec<String>)>);
 
-/// Read a tab-separated table: header fields and rows, with row numbers for errors.
-/// Rows are 1-based file lines (the header is line 1).
-pub fn read_tsv(path: &Path) -> Result<Table, CaptureError> {
-    let bytes = std::fs::read(path).map_err(|e| CaptureError::io(path, e))?;
-    let text = std::str::from_utf8(&bytes).map_err(|e| {
+fn utf8_text<'a>(path: &Path, bytes: &'a [u8]) -> Result<&'a str, CaptureError> {
+    let text = std::str::from_utf8(bytes).map_err(|e| {
         let line = bytes[..e.valid_up_to()]
             .iter()
             .filter(|&&b| b == b'\n')
@@ -157,7 +134,19 @@ pub fn read_tsv(path: &Path) -> Result<Table, CaptureError> {
             ),
         }
     })?;
-    let text = text.strip_prefix('\u{feff}').unwrap_or(text);
+    Ok(text.strip_prefix('\u{feff}').unwrap_or(text))
+}
+
+/// Stream a tab-separated table: calls `row(1, header)` first, then `row(line, fields)` for
+/// every data row (blank lines and `#` comments skipped; line numbers are 1-based, the header
+/// is line 1). Rows with the wrong number of fields are an error naming the line. Returns the
+/// header.
+pub fn for_each_row(
+    path: &Path,
+    mut row: impl FnMut(usize, &[&str]) -> Result<(), CaptureError>,
+) -> Result<Vec<String>, CaptureError> {
+    let bytes = std::fs::read(path).map_err(|e| CaptureError::io(path, e))?;
+    let text = utf8_text(path, &bytes)?;
     let mut lines = text.split('\n').enumerate().filter_map(|(i, l)| {
         let l = l.strip_suffix('\r').unwrap_or(l);
         if l.is_empty() || l.starts_with('#') {
@@ -174,9 +163,11 @@ pub fn read_tsv(path: &Path) -> Result<Table, CaptureError> {
         found: "an empty file".into(),
     })?;
     let header: Vec<String> = head.split('\t').map(|s| s.trim().to_string()).collect();
-    let mut rows = Vec::new();
+    let mut fields: Vec<&str> = header.iter().map(String::as_str).collect();
+    row(1, &fields)?;
     for (line, l) in lines {
-        let fields: Vec<String> = l.split('\t').map(|s| s.trim().to_string()).collect();
+        fields.clear();
+        fields.extend(l.split('\t').map(str::trim));
         if fields.len() != header.len() {
             return Err(CaptureError::Table {
                 path: path.to_path_buf(),
@@ -190,9 +181,60 @@ pub fn read_tsv(path: &Path) -> Result<Table, CaptureError> {
                 found: format!("{} fields", fields.len()),
             });
         }
-        rows.push((line, fields));
+        row(line, &fields)?;
     }
+    Ok(header)
+}
+
+/// Read a (small) tab-separated table whole: header fields and rows with line numbers.
+pub fn read_tsv(path: &Path) -> Result<Table, CaptureError> {
+    let mut rows = Vec::new();
+    let header = for_each_row(path, |line, f| {
+        if line > 1 {
+            rows.push((line, f.iter().map(|s| s.to_string()).collect()));
+        }
+        Ok(())
+    })?;
     Ok((header, rows))
+}
+
+/// Interns the values of one task column as codes.
+struct TaskBuilder {
+    index: HashMap<String, u32>,
+    classes: Vec<String>,
+    codes: Vec<u32>,
+}
+
+impl TaskBuilder {
+    fn new() -> Self {
+        TaskBuilder {
+            index: HashMap::new(),
+            classes: Vec::new(),
+            codes: Vec::new(),
+        }
+    }
+    fn push(&mut self, v: Option<&str>) {
+        let code = match v {
+            None => UNLABELLED,
+            Some(s) => match self.index.get(s) {
+                Some(&k) => k,
+                None => {
+                    self.classes.push(s.to_string());
+                    let k = (self.classes.len() - 1) as u32;
+                    self.index.insert(s.to_string(), k);
+                    k
+                }
+            },
+        };
+        self.codes.push(code);
+    }
+    fn finish(self, name: &str) -> LabelTask {
+        LabelTask {
+            name: name.to_string(),
+            classes: self.classes,
+            codes: self.codes,
+        }
+    }
 }
 
 fn column(path: &Path, header: &[String], name: &str) -> Result<usize, CaptureError> {
@@ -239,7 +281,7 @@ impl Builder {
     }
 }
 
-fn clean(opts: &LabelOptions, v: &str) -> Option<String> {
+fn clean<'a>(opts: &'a LabelOptions, v: &'a str) -> Option<&'a str> {
     if v.is_empty() {
         return None;
     }
@@ -247,7 +289,7 @@ fn clean(opts: &LabelOptions, v: &str) -> Option<String> {
     if opts.drop.iter().any(|d| d == v) {
         None
     } else {
-        Some(v.to_string())
+        Some(v)
     }
 }
 
@@ -268,41 +310,36 @@ pub fn read_frames_tsv(
     cols: &Columns,
     opts: &LabelOptions,
 ) -> Result<FrameTable, CaptureError> {
-    let (header, rows) = read_tsv(path)?;
-    let ucol = column(path, &header, cols.utterance)?;
-    let scol = column(path, &header, cols.speaker)?;
-    let mut task_cols: Vec<usize> = (0..header.len())
-        .filter(|&c| c != ucol && c != scol)
-        .collect();
-    if !opts.columns.is_empty() {
-        for want in &opts.columns {
-            if want != "speaker" {
-                column(path, &header, want)?;
-            }
-        }
-        task_cols.retain(|&c| opts.columns.contains(&header[c]));
-    }
-    if rows.is_empty() {
-        return Err(CaptureError::Table {
-            path: path.to_path_buf(),
-            row: 2,
-            field: "rows".into(),
-            expected: "one row per frame".into(),
-            found: "a header and no rows".into(),
-        });
-    }
     let mut b = Builder::new();
-    let mut frame_utt = Vec::with_capacity(rows.len());
-    let mut frame_pos = Vec::with_capacity(rows.len());
-    let mut values: Vec<Vec<Option<String>>> =
-        vec![Vec::with_capacity(rows.len()); task_cols.len()];
-    for (line, f) in &rows {
-        let utt = &f[ucol];
-        let spk = &f[scol];
+    let mut frame_utt = Vec::new();
+    let mut frame_pos = Vec::new();
+    let (mut ucol, mut scol) = (0usize, 0usize);
+    let mut task_cols: Vec<usize> = Vec::new();
+    let mut builders: Vec<TaskBuilder> = Vec::new();
+    let header = for_each_row(path, |line, f| {
+        if line == 1 {
+            let head: Vec<String> = f.iter().map(|s| s.to_string()).collect();
+            ucol = column(path, &head, cols.utterance)?;
+            scol = column(path, &head, cols.speaker)?;
+            task_cols = (0..head.len())
+                .filter(|&c| c != ucol && c != scol)
+                .collect();
+            if !opts.columns.is_empty() {
+                for want in &opts.columns {
+                    if want != "speaker" {
+                        column(path, &head, want)?;
+                    }
+                }
+                task_cols.retain(|&c| opts.columns.contains(&head[c]));
+            }
+            builders = task_cols.iter().map(|_| TaskBuilder::new()).collect();
+            return Ok(());
+        }
+        let (utt, spk) = (f[ucol], f[scol]);
         if utt.is_empty() || spk.is_empty() {
             return Err(CaptureError::Table {
                 path: path.to_path_buf(),
-                row: *line,
+                row: line,
                 field: if utt.is_empty() {
                     cols.utterance.into()
                 } else {
@@ -313,12 +350,12 @@ pub fn read_frames_tsv(
             });
         }
         let s = b.speaker(spk);
-        let u = match b.utt_index.get(utt.as_str()) {
+        let u = match b.utt_index.get(utt) {
             Some(&u) => {
                 if b.utt_speaker[u as usize] != s {
                     return Err(CaptureError::Table {
                         path: path.to_path_buf(),
-                        row: *line,
+                        row: line,
                         field: cols.speaker.into(),
                         expected: format!(
                             "speaker '{}' (as on earlier rows of utterance '{utt}')",
@@ -330,25 +367,35 @@ pub fn read_frames_tsv(
                 u
             }
             None => {
-                b.utterances.push(utt.clone());
+                b.utterances.push(utt.to_string());
                 b.utt_speaker.push(s);
                 b.utt_len.push(0);
                 let u = (b.utterances.len() - 1) as u32;
-                b.utt_index.insert(utt.clone(), u);
+                b.utt_index.insert(utt.to_string(), u);
                 u
             }
         };
         frame_utt.push(u);
         frame_pos.push(b.utt_len[u as usize]);
         b.utt_len[u as usize] += 1;
-        for (k, &c) in task_cols.iter().enumerate() {
-            values[k].push(clean(opts, &f[c]));
+        for (tb, &c) in builders.iter_mut().zip(task_cols.iter()) {
+            tb.push(clean(opts, f[c]));
         }
+        Ok(())
+    })?;
+    if frame_utt.is_empty() {
+        return Err(CaptureError::Table {
+            path: path.to_path_buf(),
+            row: 2,
+            field: "rows".into(),
+            expected: "one row per frame".into(),
+            found: "a header and no rows".into(),
+        });
     }
-    let mut tasks: Vec<LabelTask> = task_cols
-        .iter()
-        .zip(values)
-        .map(|(&c, v)| LabelTask::from_strings(&header[c], v))
+    let mut tasks: Vec<LabelTask> = builders
+        .into_iter()
+        .zip(&task_cols)
+        .map(|(tb, &c)| tb.finish(&header[c]))
         .collect();
     tasks.push(speaker_task(&b, &frame_utt));
     Ok(FrameTable {
@@ -495,7 +542,7 @@ pub fn read_segments(
     let total: usize = b.utt_len.iter().map(|&n| n as usize).sum();
     let mut frame_utt = Vec::with_capacity(total);
     let mut frame_pos = Vec::with_capacity(total);
-    let mut values: Vec<Option<String>> = Vec::with_capacity(total);
+    let mut values = TaskBuilder::new();
     for (u, segs) in per_utt.iter_mut().enumerate() {
         segs.sort_by(|a, b| a.0.total_cmp(&b.0));
         for w in segs.windows(2) {
@@ -529,7 +576,7 @@ pub fn read_segments(
             values.push(label);
         }
     }
-    let mut tasks = vec![LabelTask::from_strings(label_name, values)];
+    let mut tasks = vec![values.finish(label_name)];
     tasks.push(speaker_task(&b, &frame_utt));
     Ok(FrameTable {
         utterances: b.utterances,

@@ -533,8 +533,14 @@ impl NpyFile {
                             *o = self.get(data, self.index(layer, r, c));
                         }
                     } else {
-                        self.decode_run(data, self.index(layer, r, 0), slice);
+                        let start = self.index(layer, r, 0);
+                        self.decode_run(data, start, slice);
+                        // Sparse row reads must not leave the whole file resident.
+                        self.release_elems(start, start + slice.len());
                     }
+                }
+                if fortran {
+                    self.release();
                 }
             });
         out
@@ -551,7 +557,11 @@ impl NpyFile {
                 slice
                     .par_chunks_mut(1 << 16)
                     .enumerate()
-                    .for_each(|(ci, chunk)| self.decode_run(data, base + ci * (1 << 16), chunk));
+                    .for_each(|(ci, chunk)| {
+                        let start = base + ci * (1 << 16);
+                        self.decode_run(data, start, chunk);
+                        self.release_elems(start, start + chunk.len());
+                    });
             }
             out
         } else {
@@ -571,6 +581,22 @@ impl NpyFile {
                 }
             }
             out
+        }
+    }
+
+    /// Drop the pages holding data elements `lo..hi` (storage order) from the resident set.
+    fn release_elems(&self, lo: usize, hi: usize) {
+        if let Some(m) = &self.map {
+            let sz = self.header.dtype.size();
+            let start = self.header.data_offset + lo * sz;
+            let len = (hi - lo) * sz;
+            if len > 0 && start + len <= m.len() {
+                // SAFETY: as in `release`: read-only file mapping, refilled from the file.
+                unsafe {
+                    let _ =
+                        m.unchecked_advise_range(memmap2::UncheckedAdvice::DontNeed, start, len);
+                }
+            }
         }
     }
 
