@@ -543,7 +543,24 @@ fn plan_tasks(cap: &Capture, opts: &ProbeOptions, seed: u64, notes: &mut Vec<Str
             )));
         }
         let kind = opts.split.resolve(speaker_task);
+        if speaker_task && kind == SplitKind::Speaker {
+            return Err(input(
+                "--split speaker cannot be used for the speaker task: no test speaker would be in training; use --split auto or utterance".into(),
+            ));
+        }
         let mut items = pool::pool_items(t, &idx, &task.codes, opts.pooling, name).map_err(input)?;
+        if kind == SplitKind::Speaker {
+            let mut spk: Vec<u32> = items.speaker.clone();
+            spk.sort_unstable();
+            spk.dedup();
+            if spk.len() < 2 {
+                return Err(input(format!(
+                    "{}: task '{name}': a speaker-disjoint split needs at least 2 speakers with labelled frames, found {}; use --split utterance to split within speakers",
+                    cap.dir.display(),
+                    spk.len()
+                )));
+            }
+        }
         let mut dropped = Vec::new();
         // Classes (or speakers) the split cannot place on both sides.
         let n_cls = task.classes.len();
