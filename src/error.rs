@@ -4,6 +4,7 @@
 use crate::capture::CaptureError;
 use crate::output::OutputError;
 use crate::plot::PlotError;
+use crate::probe::ProbeError;
 
 /// Any error the library returns to the CLI.
 #[derive(Debug, thiserror::Error)]
@@ -17,6 +18,9 @@ pub enum Error {
     /// Drawing failed.
     #[error(transparent)]
     Plot(#[from] PlotError),
+    /// The probe stage failed.
+    #[error(transparent)]
+    Probe(#[from] ProbeError),
     /// Bad input found by an analysis (options that do not fit the data).
     #[error("{0}")]
     Input(String),
@@ -34,6 +38,8 @@ impl Error {
         match self {
             Error::Capture(_) | Error::Input(_) => 2,
             Error::Output(OutputError::Refused { .. }) => 2,
+            Error::Probe(ProbeError::Input(_)) => 2,
+            Error::Probe(ProbeError::Internal(_)) => 1,
             Error::Output(_) | Error::Plot(_) | Error::NotYet(_) | Error::Internal(_) => 1,
         }
     }

@@ -10,6 +10,7 @@ pub mod inspect;
 pub mod linalg;
 pub mod output;
 pub mod plot;
+pub mod probe;
 pub mod progress;
 pub mod select;
 

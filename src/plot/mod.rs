@@ -4,6 +4,7 @@
 //! SVG. Figures themselves live beside this file, one module per analysis.
 
 pub mod palette;
+pub mod probe;
 
 use std::path::{Path, PathBuf};
 use std::sync::Once;
