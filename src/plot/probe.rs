@@ -57,7 +57,7 @@ impl LayerCurves {
 
 impl super::Figure for LayerCurves {
     fn size(&self) -> (u32, u32) {
-        (900, 560)
+        (1100, 560)
     }
 
     fn draw<DB: DrawingBackend>(&self, area: &DrawingArea<DB, Shift>) -> Result<(), String> {
@@ -78,7 +78,10 @@ impl super::Figure for LayerCurves {
         };
         let pad = 0.15 * (x1 - x0).max(1.0) / 4.0;
         let n_layers = (x1 - x0).round() as usize + 1;
-        let mut chart = ChartBuilder::on(area)
+        let (w, _) = self.size();
+        let (plot_area, legend_area) = area.split_horizontally(w as i32 - 300);
+        let legend = &legend_area;
+        let mut chart = ChartBuilder::on(&plot_area)
             .caption(&self.title, text(20.0))
             .margin(14)
             .x_label_area_size(46)
@@ -139,47 +142,65 @@ impl super::Figure for LayerCurves {
                 .map_err(e2s)?;
             chart
                 .draw_series(LineSeries::new(pts(&t.acc), col.stroke_width(3)).point_size(4))
-                .map_err(e2s)?
-                .label(t.name.clone())
-                .legend(move |(x, y)| {
-                    PathElement::new(vec![(x, y), (x + 24, y)], col.stroke_width(3))
-                });
+                .map_err(e2s)?;
         }
-        // Style keys for the dashed and dotted lines, in neutral grey.
+        // Legend beside the chart, so it never hides a curve.
         let grey = RGBColor(90, 90, 90);
-        chart
-            .draw_series(std::iter::empty::<Circle<(f64, f64), i32>>())
-            .map_err(e2s)?
-            .label("majority baseline (dashed)")
-            .legend(move |(x, y)| {
-                EmptyElement::at((x, y))
-                    + PathElement::new(vec![(0, 0), (9, 0)], grey.stroke_width(2))
-                    + PathElement::new(vec![(15, 0), (24, 0)], grey.stroke_width(2))
-            });
-        chart
-            .draw_series(std::iter::empty::<Circle<(f64, f64), i32>>())
-            .map_err(e2s)?
-            .label("control task (dotted)")
-            .legend(move |(x, y)| {
-                let dot = |k: i32| {
-                    PathElement::new(vec![(7 * k, 0), (7 * k + 2, 0)], grey.stroke_width(3))
-                };
-                EmptyElement::at((x, y)) + dot(0) + dot(1) + dot(2) + dot(3)
-            });
-        chart
-            .draw_series(std::iter::empty::<Circle<(f64, f64), i32>>())
-            .map_err(e2s)?
-            .label("shaded: 95% bootstrap interval")
-            .legend(move |(x, y)| {
-                Rectangle::new([(x, y - 6), (x + 24, y + 6)], grey.mix(0.25).filled())
-            });
-        chart
-            .configure_series_labels()
-            .position(SeriesLabelPosition::UpperRight)
-            .background_style(WHITE.mix(0.88))
-            .border_style(RGBColor(200, 200, 200))
-            .label_font(text(13.0))
-            .draw()
+        let x0 = 10i32;
+        let mut y = 70i32;
+        let line = |ar: &DrawingArea<DB, Shift>,
+                    y: i32,
+                    style: ShapeStyle,
+                    dash: i32,
+                    gap: i32|
+         -> Result<(), String> {
+            let mut x = x0;
+            while x < x0 + 28 {
+                let e = (x + dash).min(x0 + 28);
+                ar.draw(&PathElement::new(vec![(x, y), (e, y)], style))
+                    .map_err(e2s)?;
+                x += dash + gap;
+            }
+            Ok(())
+        };
+        for (t, &col) in self.tasks.iter().zip(&colours) {
+            line(legend, y, col.stroke_width(3), 28, 0)?;
+            legend
+                .draw(&Text::new(
+                    t.name.clone(),
+                    (x0 + 36, y),
+                    text(13.0).pos(Pos::new(HPos::Left, VPos::Center)),
+                ))
+                .map_err(e2s)?;
+            y += 24;
+        }
+        y += 8;
+        for (label, dash, gap, wdt) in [
+            ("majority baseline (dashed)", 9, 6, 2),
+            ("control task (dotted)", 2, 5, 3),
+        ] {
+            line(legend, y, grey.stroke_width(wdt), dash, gap)?;
+            legend
+                .draw(&Text::new(
+                    label,
+                    (x0 + 36, y),
+                    text(13.0).pos(Pos::new(HPos::Left, VPos::Center)),
+                ))
+                .map_err(e2s)?;
+            y += 24;
+        }
+        legend
+            .draw(&Rectangle::new(
+                [(x0, y - 7), (x0 + 28, y + 7)],
+                grey.mix(0.25).filled(),
+            ))
+            .map_err(e2s)?;
+        legend
+            .draw(&Text::new(
+                "95% bootstrap interval",
+                (x0 + 36, y),
+                text(13.0).pos(Pos::new(HPos::Left, VPos::Center)),
+            ))
             .map_err(e2s)?;
         Ok(())
     }

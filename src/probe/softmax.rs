@@ -98,6 +98,8 @@ pub struct SoftmaxModel {
     pub objective: f64,
     /// L-BFGS iterations.
     pub iterations: usize,
+    /// Objective evaluations (each one pass over the data).
+    pub evaluations: usize,
     /// Whether a stopping rule was met before the iteration cap.
     pub converged: bool,
 }
@@ -213,6 +215,7 @@ pub fn fit(
         objective: r.f * nf,
         params: r.x,
         iterations: r.iterations,
+        evaluations: r.evaluations,
         converged: r.converged,
     }
 }
