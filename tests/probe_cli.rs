@@ -193,7 +193,10 @@ fn fit_predict_chooses_a_penalty_from_the_grid() {
 
 /// Synthetic capture: `n_spk` speakers × 4 utterances × 30 frames, 5 phones in runs of 3,
 /// three layers where phone information grows and speaker information fades with depth.
-fn synth(dir: &Path, n_spk: usize, extra: Option<(&str, &dyn Fn(usize, usize) -> String)>) {
+/// An extra label column: its name and the label of (speaker, frame).
+type ExtraColumn<'a> = (&'a str, &'a dyn Fn(usize, usize) -> String);
+
+fn synth(dir: &Path, n_spk: usize, extra: Option<ExtraColumn>) {
     std::fs::create_dir_all(dir).unwrap();
     let dim = 6;
     let mut tsv = String::from("utterance\tspeaker\tphone");
