@@ -4,6 +4,7 @@
 use crate::capture::CaptureError;
 use crate::output::OutputError;
 use crate::plot::PlotError;
+use crate::probe::ProbeError;
 use crate::report::ReportError;
 
 /// Any error the library returns to the CLI.
@@ -21,6 +22,9 @@ pub enum Error {
     /// The report stage failed.
     #[error(transparent)]
     Report(#[from] ReportError),
+    /// The probe stage failed.
+    #[error(transparent)]
+    Probe(#[from] ProbeError),
     /// Bad input found by an analysis (options that do not fit the data).
     #[error("{0}")]
     Input(String),
@@ -40,6 +44,8 @@ impl Error {
             Error::Output(OutputError::Refused { .. }) => 2,
             Error::Report(e) if e.is_input() => 2,
             Error::Report(_) => 1,
+            Error::Probe(ProbeError::Input(_)) => 2,
+            Error::Probe(ProbeError::Internal(_)) => 1,
             Error::Output(_) | Error::Plot(_) | Error::NotYet(_) | Error::Internal(_) => 1,
         }
     }
