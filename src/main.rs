@@ -228,6 +228,7 @@ fn run(cli: Cli) -> Result<(), Error> {
                 force,
                 common,
                 open: open_options(&cap)?,
+                ..Default::default()
             };
             let rec = voxstrata::report::run(&captures, &opts, &progress)?;
             if !cli.quiet {

@@ -757,6 +757,10 @@ fn probe_rows(recs: &[ProbeRecord]) -> Vec<Vec<String>> {
                 f3(r.majority_baseline),
                 f3(r.control_accuracy),
                 f3(r.selectivity),
+                match r.c {
+                    Some(c) if c.is_finite() => format!("{c:.3}"),
+                    _ => "—".into(),
+                },
             ]
         })
         .collect()
@@ -781,7 +785,7 @@ fn purity_rows(recs: &[PurityRecord]) -> Vec<Vec<String>> {
         .collect()
 }
 
-const PROBE_HEAD: [&str; 14] = [
+const PROBE_HEAD: [&str; 15] = [
     "layer",
     "task",
     "pooling",
@@ -796,6 +800,7 @@ const PROBE_HEAD: [&str; 14] = [
     "majority",
     "control",
     "selectivity",
+    "C",
 ];
 const PURITY_HEAD: [&str; 10] = [
     "layer",
@@ -894,6 +899,32 @@ fn methods_html(out: &mut String, inp: &ReportInputs) {
                 "On “{name}”, a linear probe (multinomial logistic regression) was trained on every layer for {}; each accuracy is shown with its 95% interval beside the majority-class baseline and a control task with shuffled labels (Hewitt & Liang 2019). ",
                 parts.join(", ")
             );
+            let opt = inp
+                .methods
+                .options
+                .iter()
+                .find(|(k, _)| k == &format!("probe {name}") || k == "probe")
+                .map(|(_, v)| v);
+            if let Some(o) = opt {
+                if let Some(alphas) = o.get("alphas").and_then(|a| a.as_array()) {
+                    let grid: Vec<String> = alphas.iter().map(|a| a.to_string()).collect();
+                    let inner = o
+                        .get("inner_fraction")
+                        .map(|v| v.to_string())
+                        .unwrap_or_else(|| "a share".into());
+                    let _ = write!(
+                        p,
+                        "The L2 penalty of each probe was chosen from α ∈ {{{}}} per training item (C = 1/(α·n)) by accuracy on {inner} of the training groups held out. ",
+                        grid.join(", ")
+                    );
+                }
+                if let Some(b) = o.get("bootstrap") {
+                    let _ = write!(
+                        p,
+                        "Intervals come from {b} cluster-bootstrap resamples of the test set. "
+                    );
+                }
+            }
         }
         match &sec.maps {
             Some(mp) => {

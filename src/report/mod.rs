@@ -121,6 +121,8 @@ pub struct ProbeRecord {
     pub control_accuracy: Option<f64>,
     /// Accuracy minus control accuracy.
     pub selectivity: Option<f64>,
+    /// Inverse L2 penalty chosen by the penalty search.
+    pub c: Option<f64>,
 }
 
 /// One `purity` record, as `purity.json` holds it.
@@ -594,6 +596,8 @@ pub struct ReportOptions {
     pub common: CommonOptions,
     /// How captures are opened (label cleaning, non-finite frames).
     pub open: OpenOptions,
+    /// Probe settings.
+    pub probe: crate::probe::ProbeOptions,
 }
 
 /// What `run` did, written as `run.json`.
@@ -795,6 +799,21 @@ pub fn run(
         });
     }
 
+    // The analyses, each writing its records and figures into the capture's folder.
+    for (c, dir) in caps.iter().zip(&dirs) {
+        let t = Instant::now();
+        let rep = crate::probe::run(c, &opts.probe, &opts.common, progress)?;
+        crate::probe::write_outputs(&rep, dir)?;
+        for f in ["probe.json", "probe.csv", "probe.png", "probe.svg"] {
+            outputs.push(rel(&opts.out, &dir.join(f)));
+        }
+        for cf in &rep.confusion {
+            let stem = format!("confusion_{}", crate::probe::file_stem(&cf.task));
+            outputs.push(rel(&opts.out, &dir.join(format!("{stem}.svg"))));
+        }
+        time(&mut timings, &format!("probe {}", c.name), t);
+    }
+
     // Read back whatever the analyses wrote.
     let t = Instant::now();
     let prefix = |c: &Capture| {
@@ -818,6 +837,16 @@ pub fn run(
             dir,
             &[
                 ("probe", "probe accuracy by layer", FigureSection::Probe),
+                (
+                    "confusion_phone",
+                    "phone confusions at the best layer",
+                    FigureSection::Probe,
+                ),
+                (
+                    "confusion_speaker",
+                    "speaker confusions at the best layer",
+                    FigureSection::Probe,
+                ),
                 ("map", "layer maps", FigureSection::Maps),
                 ("maps", "layer maps", FigureSection::Maps),
                 ("purity", "purity by layer", FigureSection::Maps),
