@@ -77,6 +77,18 @@ pub fn base64(bytes: &[u8]) -> String {
     o
 }
 
+/// At most `n` characters, with an ellipsis when cut (for axis titles).
+fn short(s: &str, n: usize) -> String {
+    if s.chars().count() <= n {
+        s.to_string()
+    } else {
+        s.chars()
+            .take(n.saturating_sub(1))
+            .chain(std::iter::once('…'))
+            .collect()
+    }
+}
+
 fn hex(c: Rgb) -> String {
     format!("#{:02x}{:02x}{:02x}", c.0, c.1, c.2)
 }
@@ -536,9 +548,9 @@ pub fn cka_svg(cmp: &CompareInputs) -> Option<String> {
         r##"<text x="{:.1}" y="{:.1}" text-anchor="middle" fill="#333">layer of {}</text><text transform="translate(16 {:.1}) rotate(-90)" text-anchor="middle" fill="#333">layer of {}</text>"##,
         ml + gw / 2.0,
         mt + gh + 34.0,
-        esc(&cmp.name_b),
+        esc(&short(&cmp.name_b, 28)),
         mt + gh / 2.0,
-        esc(&cmp.name_a)
+        esc(&short(&cmp.name_a, (gh / 7.0).max(8.0) as usize))
     );
     // Colour key.
     let kx = ml + gw + 24.0;
@@ -1265,5 +1277,107 @@ mod tests {
             })
         );
         assert_eq!(crossover(&l, &phone, &[0.5; 5]), None);
+    }
+}
+
+#[cfg(test)]
+mod page_tests {
+    use super::super::*;
+    use super::*;
+
+    fn section(name: &str) -> CaptureSection {
+        CaptureSection {
+            summary: summary(name),
+            probe: vec![],
+            purity: vec![],
+            maps: None,
+        }
+    }
+
+    fn summary(name: &str) -> crate::inspect::Summary {
+        crate::inspect::Summary {
+            name: name.into(),
+            path: format!("/data/{name}"),
+            label_source: "frames.tsv".into(),
+            hop_s: 0.02,
+            frames: 10,
+            utterances: 2,
+            speakers: 2,
+            layers: vec![],
+            tasks: vec![],
+            bytes_on_disk: 0,
+            probe_memory_estimate: 0,
+            notes: serde_json::json!({ "model": "<img src=x onerror=alert(1)>" }),
+            warnings: vec![],
+        }
+    }
+
+    #[test]
+    fn hostile_names_are_escaped_everywhere_on_the_page() {
+        let bad = "</script><script>alert(1)</script>";
+        let mut a = section(bad);
+        a.purity = (0..4)
+            .flat_map(|l| {
+                ["phone", "speaker"].map(|t| PurityRecord {
+                    layer: l,
+                    label: t.into(),
+                    knn_purity: Some(0.2 + 0.1 * l as f64),
+                    ..Default::default()
+                })
+            })
+            .collect();
+        let cmp = CompareInputs {
+            name_a: bad.into(),
+            name_b: "b\"'".into(),
+            cka: (0..4)
+                .flat_map(|i| {
+                    (0..4).map(move |j| CkaRecord {
+                        layer_a: i,
+                        layer_b: j,
+                        cka: Some(1.0 / (1.0 + (i as f64 - j as f64).abs())),
+                    })
+                })
+                .collect(),
+            probe_delta: vec![ProbeDelta {
+                layer: 1,
+                task: bad.into(),
+                accuracy_a: Some(0.5),
+                accuracy_b: Some(0.6),
+                delta: Some(0.1),
+                mcnemar_p: Some(1e-5),
+            }],
+        };
+        let inp = ReportInputs {
+            title: bad.into(),
+            captures: vec![a, section("b")],
+            compare: Some(cmp),
+            figures: vec![SvgFigure {
+                title: bad.into(),
+                section: FigureSection::Compare,
+                svg: format!("<svg><text>{bad}</text></svg>"),
+            }],
+            methods: Methods {
+                version: "0".into(),
+                options: vec![(bad.into(), serde_json::json!({ "k": bad }))],
+                ..Default::default()
+            },
+        };
+        let page = render(&inp).unwrap();
+        assert!(
+            !page.contains(bad) && !page.contains("<img src=x"),
+            "a raw hostile string reached the page"
+        );
+        assert_eq!(
+            page.matches("<script").count(),
+            0,
+            "no explorer data without maps, and no injected script"
+        );
+        assert!(page.contains("&lt;/script&gt;&lt;script&gt;alert(1)&lt;/script&gt;"));
+        assert!(
+            page.contains("id=\"compare\"") && page.contains("aria-label=\"CKA between layers\"")
+        );
+        if let Ok(p) = std::env::var("VOXSTRATA_DUMP_PAGE") {
+            std::fs::write(p, &page).unwrap();
+        }
     }
 }
