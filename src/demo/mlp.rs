@@ -1,6 +1,7 @@
 //! A multilayer perceptron with ReLU hidden layers and a softmax output, trained by
 //! backpropagation (Rumelhart, Hinton & Williams 1986) on minibatches with Adam (Kingma &
-//! Ba 2015) against cross-entropy. He initialisation (He et al. 2015). Every product is a
+//! Ba 2015) against cross-entropy. He initialisation (He et al. 2015) for the first and
+//! output layers, identity initialisation (Le, Jaitly & Hinton 2015) between hidden layers. Every product is a
 //! single-threaded ndarray GEMM or the blocked `linalg::matmul`, so the trained weights do
 //! not depend on the thread count.
 
@@ -33,6 +34,9 @@ impl Default for Adam {
     }
 }
 
+/// Standard deviation of the noise added to identity-initialised hidden layers.
+const IDENTITY_NOISE: f64 = 0.02;
+
 /// Weights, biases and optimiser state.
 pub struct Mlp {
     /// Weight matrices, fan-in × fan-out.
@@ -47,11 +51,23 @@ pub struct Mlp {
 }
 
 impl Mlp {
-    /// A network with layer sizes `sizes` (input, hidden..., output), He-initialised.
+    /// A network with layer sizes `sizes` (input, hidden..., output): He initialisation for
+    /// the first and last layers, identity plus noise between hidden layers of equal width.
     pub fn new(sizes: &[usize], rng: &mut ChaCha8Rng) -> Mlp {
         let mut w = Vec::new();
         let mut b = Vec::new();
-        for pair in sizes.windows(2) {
+        for (l, pair) in sizes.windows(2).enumerate() {
+            let square_hidden = l > 0 && l + 2 < sizes.len() && pair[0] == pair[1];
+            if square_hidden {
+                // Identity plus small noise (Le, Jaitly & Hinton 2015): post-ReLU inputs are
+                // non-negative, so an untrained layer passes its input on nearly unchanged and
+                // what the upper layers discard is learnt, not lost to random projections.
+                w.push(Array2::from_shape_fn((pair[0], pair[1]), |(i, j)| {
+                    (if i == j { 1.0 } else { 0.0 } + IDENTITY_NOISE * normal(rng)) as f32
+                }));
+                b.push(Array1::zeros(pair[1]));
+                continue;
+            }
             let sd = (2.0 / pair[0] as f64).sqrt();
             w.push(Array2::from_shape_fn((pair[0], pair[1]), |_| {
                 (sd * normal(rng)) as f32

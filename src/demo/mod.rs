@@ -70,7 +70,7 @@ impl DemoSize {
                 utts_per_talker: 30,
                 capture_frames: 20_400,
                 epochs: 12,
-                early_steps: 150,
+                early_steps: 60,
                 batch: 128,
             },
             DemoSize::Small => Scale {

@@ -145,6 +145,8 @@ pub struct Talker {
     pub channel: (f64, f64, f64),
     /// Second channel colouring band (a notch or peak elsewhere).
     pub channel2: (f64, f64, f64),
+    /// Third channel colouring band (high frequencies).
+    pub channel3: (f64, f64, f64),
     /// Speaking-rate factor on durations.
     pub rate: f64,
     /// Level of the background noise floor (relative to speech RMS).
@@ -168,14 +170,15 @@ impl Talker {
         let shimmer = 0.03 + 0.04 * n().abs();
         let breathiness = 0.02 + 0.08 * n().abs();
         let open_quotient = (0.55 + 0.08 * n()).clamp(0.4, 0.75);
-        let vtl = (1.0 + 0.06 * n()).clamp(0.88, 1.12);
+        let vtl = (1.0 + 0.07 * n()).clamp(0.86, 1.14);
         let formant_bias = [0.04 * n(), 0.04 * n(), 0.03 * n()];
-        let tilt = (0.3 + 0.25 * n()).clamp(0.0, 0.8);
+        let tilt = (0.35 + 0.3 * n()).clamp(0.0, 0.85);
         let mut u = |lo: f64, hi: f64| lo + (hi - lo) * rng.random::<f64>();
-        let channel = (u(300.0, 3000.0), u(-9.0, 9.0), u(0.7, 2.0));
-        let channel2 = (u(2500.0, 7000.0), u(-12.0, 9.0), u(0.7, 3.0));
+        let channel = (u(200.0, 1500.0), u(-10.0, 10.0), u(0.7, 2.0));
+        let channel2 = (u(1500.0, 4000.0), u(-10.0, 10.0), u(0.7, 2.5));
+        let channel3 = (u(4000.0, 7500.0), u(-12.0, 10.0), u(0.7, 2.5));
         let rate = u(0.85, 1.2);
-        let noise_floor = 10f64.powf(u(-3.2, -2.4));
+        let noise_floor = 10f64.powf(u(-3.5, -2.2));
         Talker {
             name: format!("{}{:02}", group.prefix(), index),
             group,
@@ -189,6 +192,7 @@ impl Talker {
             tilt,
             channel,
             channel2,
+            channel3,
             rate,
             noise_floor,
         }
@@ -526,18 +530,20 @@ pub fn synthesise(talker: &Talker, segs: &[Segment], rng: &mut ChaCha8Rng) -> Ve
         }
     }
 
-    // Channel colouring, loudness normalisation, background noise floor.
-    let mut eq1 = Peaking::new(talker.channel.0, talker.channel.1, talker.channel.2);
-    let mut eq2 = Peaking::new(talker.channel2.0, talker.channel2.1, talker.channel2.2);
-    for v in out.iter_mut() {
-        *v = eq2.step(eq1.step(*v));
-    }
+    // Loudness normalisation, then the talker's room noise floor, then its channel
+    // colouring (microphone and room), which colours the pauses as well as the speech.
     let rms = (out.iter().map(|v| v * v).sum::<f64>() / n.max(1) as f64)
         .sqrt()
         .max(1e-12);
     let gain = 0.1 / rms * 10f64.powf(0.15 * normal(rng) / 2.0);
+    let mut eq1 = Peaking::new(talker.channel.0, talker.channel.1, talker.channel.2);
+    let mut eq2 = Peaking::new(talker.channel2.0, talker.channel2.1, talker.channel2.2);
+    let mut eq3 = Peaking::new(talker.channel3.0, talker.channel3.1, talker.channel3.2);
     out.iter()
-        .map(|v| (v * gain + 0.1 * talker.noise_floor * normal(rng)) as f32)
+        .map(|v| {
+            let x = v * gain + 0.1 * talker.noise_floor * normal(rng);
+            eq3.step(eq2.step(eq1.step(x))) as f32
+        })
         .collect()
 }
 
