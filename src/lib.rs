@@ -5,6 +5,7 @@
 //! ([`plot`]) and the report. See `docs/design.md`.
 
 pub mod capture;
+pub mod demo;
 pub mod error;
 pub mod inspect;
 pub mod linalg;
