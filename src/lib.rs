@@ -8,9 +8,11 @@ pub mod capture;
 pub mod error;
 pub mod inspect;
 pub mod linalg;
+pub mod map;
 pub mod output;
 pub mod plot;
 pub mod progress;
+pub mod purity;
 pub mod select;
 
 pub use capture::{Capture, CaptureError, OpenOptions};
