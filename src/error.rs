@@ -5,6 +5,7 @@ use crate::capture::CaptureError;
 use crate::map::MapError;
 use crate::output::OutputError;
 use crate::plot::PlotError;
+use crate::probe::ProbeError;
 
 /// Any error the library returns to the CLI.
 #[derive(Debug, thiserror::Error)]
@@ -18,6 +19,9 @@ pub enum Error {
     /// Drawing failed.
     #[error(transparent)]
     Plot(#[from] PlotError),
+    /// The probe stage failed.
+    #[error(transparent)]
+    Probe(#[from] ProbeError),
     /// The map stage found bad input.
     #[error(transparent)]
     Map(#[from] MapError),
@@ -38,6 +42,8 @@ impl Error {
         match self {
             Error::Capture(_) | Error::Input(_) | Error::Map(_) => 2,
             Error::Output(OutputError::Refused { .. }) => 2,
+            Error::Probe(ProbeError::Input(_)) => 2,
+            Error::Probe(ProbeError::Internal(_)) => 1,
             Error::Output(_) | Error::Plot(_) | Error::NotYet(_) | Error::Internal(_) => 1,
         }
     }

@@ -9,7 +9,11 @@ use voxstrata::capture::{LabelOptions, LayerSelection};
 use voxstrata::{Capture, CommonOptions, Error, OpenOptions, Progress};
 
 #[derive(Parser, Debug)]
-#[command(name = "voxstrata", version, about = "What each layer of a speech model encodes: probes, maps, cluster purity and checkpoint comparison")]
+#[command(
+    name = "voxstrata",
+    version,
+    about = "What each layer of a speech model encodes: probes, maps, cluster purity and checkpoint comparison"
+)]
 struct Cli {
     #[command(subcommand)]
     command: Command,
@@ -40,6 +44,46 @@ struct CaptureArgs {
     allow_nonfinite: bool,
 }
 
+#[derive(Args, Debug, Clone)]
+struct ProbeArgs {
+    /// Label task to probe (repeatable; default: phone and speaker).
+    #[arg(long = "task", value_name = "COLUMN")]
+    tasks: Vec<String>,
+    /// Pooling of frames into items: frame, segment or utterance.
+    #[arg(long = "pool", default_value = "frame")]
+    pool: voxstrata::select::pool::Pooling,
+    /// Frames stacked either side of each frame, within its utterance.
+    #[arg(long, default_value_t = 0)]
+    context: usize,
+    /// Split: auto, speaker, utterance or frame.
+    #[arg(long, default_value = "auto")]
+    split: voxstrata::select::split::SplitKind,
+    /// Grouped cross-validation folds (1: one train/test split).
+    #[arg(long, default_value_t = 1)]
+    folds: usize,
+    /// Share of groups held out for testing (one split).
+    #[arg(long = "test-fraction", default_value_t = 0.25)]
+    test_fraction: f64,
+    /// Largest number of training items per fit (stratified subsample; 0: all).
+    #[arg(long = "max-train-frames", default_value_t = 20_000)]
+    max_train_frames: usize,
+    /// Bootstrap resamples for the 95% interval.
+    #[arg(long, default_value_t = 1000)]
+    bootstrap: usize,
+    /// Skip the control task.
+    #[arg(long = "no-control")]
+    no_control: bool,
+    /// Stop instead of dropping classes or speakers the split cannot use.
+    #[arg(long)]
+    strict: bool,
+    /// Output folder.
+    #[arg(long, default_value = "voxstrata-probe")]
+    out: PathBuf,
+    /// Write into an output folder that already holds files.
+    #[arg(long)]
+    force: bool,
+}
+
 #[derive(Subcommand, Debug)]
 enum Command {
     /// Summarise a capture: layers, frames, speakers, label tasks, warnings.
@@ -58,6 +102,8 @@ enum Command {
         capture: PathBuf,
         #[command(flatten)]
         cap: CaptureArgs,
+        #[command(flatten)]
+        probe: ProbeArgs,
     },
     /// 2-D maps (t-SNE or PCA) and cluster purity per layer.
     Map {
@@ -113,15 +159,25 @@ enum MapMethod {
 }
 
 fn open_options(c: &CaptureArgs) -> Result<OpenOptions, Error> {
-    let mut labels = LabelOptions { drop: c.drop_label.clone(), ..Default::default() };
+    let mut labels = LabelOptions {
+        drop: c.drop_label.clone(),
+        ..Default::default()
+    };
     if let Some(p) = &c.merge_labels {
         labels.merge = voxstrata::capture::labels::read_merge_map(p)?;
     }
-    Ok(OpenOptions { labels, allow_nonfinite: c.allow_nonfinite })
+    Ok(OpenOptions {
+        labels,
+        allow_nonfinite: c.allow_nonfinite,
+    })
 }
 
 fn run(cli: Cli) -> Result<(), Error> {
-    let common = CommonOptions { seed: cli.seed, threads: cli.threads, layers: cli.layers.clone() };
+    let common = CommonOptions {
+        seed: cli.seed,
+        threads: cli.threads,
+        layers: cli.layers.clone(),
+    };
     let progress = Progress::new(cli.quiet);
     if common.threads > 0 {
         rayon::ThreadPoolBuilder::new()
@@ -134,22 +190,68 @@ fn run(cli: Cli) -> Result<(), Error> {
             let c = Capture::open(&capture, &open_options(&cap)?)?;
             let s = voxstrata::inspect::summarise(&c);
             if json {
-                let text = serde_json::to_string_pretty(&s).map_err(|e| Error::Internal(e.to_string()))?;
+                let text =
+                    serde_json::to_string_pretty(&s).map_err(|e| Error::Internal(e.to_string()))?;
                 println!("{text}");
             } else {
                 print!("{}", voxstrata::inspect::render_text(&s));
             }
             Ok(())
         }
-        Command::Probe { .. } => Err(Error::NotYet("probe")),
-        Command::Map { capture, method, per_label, color_by, out, force, cap } => {
+        Command::Probe {
+            capture,
+            cap,
+            probe,
+        } => {
+            let opts = voxstrata::probe::ProbeOptions {
+                tasks: probe.tasks,
+                pooling: probe.pool,
+                context: probe.context,
+                split: probe.split,
+                test_fraction: probe.test_fraction,
+                folds: probe.folds,
+                max_train_frames: probe.max_train_frames,
+                bootstrap: probe.bootstrap,
+                control: !probe.no_control,
+                strict: probe.strict,
+                ..Default::default()
+            };
+            // Refuse an unusable output folder before any work (nothing is created here).
+            if probe.out.exists() {
+                voxstrata::output::prepare_out_dir(&probe.out, probe.force)?;
+            }
+            let c = Capture::open(&capture, &open_options(&cap)?)?;
+            let report = voxstrata::probe::run(&c, &opts, &common, &progress)?;
+            for n in &report.notes {
+                eprintln!("voxstrata: {n}");
+            }
+            voxstrata::output::prepare_out_dir(&probe.out, probe.force)?;
+            voxstrata::probe::write_outputs(&report, &probe.out)?;
+            print!("{}", voxstrata::probe::summary_text(&report));
+            println!("  outputs in {}", probe.out.display());
+            Ok(())
+        }
+        Command::Map {
+            capture,
+            method,
+            per_label,
+            color_by,
+            out,
+            force,
+            cap,
+        } => {
             voxstrata::map::check_out_dir(&out, force)?;
             let c = Capture::open(&capture, &open_options(&cap)?)?;
             let method = match method {
                 MapMethod::Tsne => voxstrata::map::Method::Tsne,
                 MapMethod::Pca => voxstrata::map::Method::Pca,
             };
-            let opts = voxstrata::map::MapOptions { method, per_label, color_by, ..Default::default() };
+            let opts = voxstrata::map::MapOptions {
+                method,
+                per_label,
+                color_by,
+                ..Default::default()
+            };
             let report = voxstrata::map::run(&c, &opts, &common, &progress)?;
             for n in &report.notes {
                 eprintln!("note: {n}");

@@ -208,10 +208,12 @@ fn repulsion_exact(y: &[[f64; 2]], rep: &mut [[f64; 2]]) -> f64 {
     zs.iter().sum()
 }
 
+type Plan = Arc<dyn Fft<f64>>;
+
 /// Workspace for the FFT-interpolation gradient (plans reused across iterations).
 struct FftGrid {
     planner: FftPlanner<f64>,
-    plans: Option<(usize, Arc<dyn Fft<f64>>, Arc<dyn Fft<f64>>)>,
+    plans: Option<(usize, Plan, Plan)>,
     kernel: Option<((usize, u64), Vec<f64>)>,
     nodes: usize,
     min_boxes: usize,

@@ -83,9 +83,9 @@ mod tests {
         let spk: Vec<u32> = (0..40).map(|i| if i < 20 { 0 } else { 1 }).collect();
         let mut ph: Vec<u32> = (0..40).map(|i| (i % 2) as u32).collect();
         ph[0] = UNLABELLED;
-        for i in 20..40 {
+        for (i, p) in ph.iter_mut().enumerate().skip(20) {
             if i % 2 == 1 && i > 24 {
-                ph[i] = 0;
+                *p = 0;
             }
         }
         let s = stratified(&[&spk, &ph], 5, 1000, 7);
