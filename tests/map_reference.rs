@@ -133,16 +133,12 @@ fn exact_pca_ratios_match_scikit_learn_and_the_published_iris_values() {
             .collect();
         let k = want.len().min(20);
         let p = pca::fit(&s.x.view(), k, pca::PcaSolver::Exact, 0);
-        for i in 0..k {
+        for (i, &w) in want.iter().take(k).enumerate() {
             // trailing digits components hold almost no variance: compare them absolutely
-            let tol = if want[i] > 1e-3 {
-                1e-6
-            } else {
-                1e-9 / want[i].max(1e-300)
-            };
+            let tol = if w > 1e-3 { 1e-6 } else { 1e-9 / w.max(1e-300) };
             close(
                 p.explained_variance_ratio[i],
-                want[i],
+                w,
                 tol,
                 &format!("{name} component {i}"),
             );
