@@ -185,24 +185,42 @@ pub struct TsneResult {
 
 /// Repulsive forces (unnormalised, Σ_j w² (y_i − y_j)) and Z, exactly.
 fn repulsion_exact(y: &[[f64; 2]], rep: &mut [[f64; 2]]) -> f64 {
+    // coordinates as separate arrays and no branch on j == i (its term is w = 1 with zero
+    // force, removed from Z afterwards) so the inner loop vectorises
+    let xs: Vec<f64> = y.iter().map(|v| v[0]).collect();
+    let ys: Vec<f64> = y.iter().map(|v| v[1]).collect();
     let zs: Vec<f64> = rep
         .par_iter_mut()
         .enumerate()
         .map(|(i, r)| {
-            let (mut z, mut f) = (0.0, [0.0, 0.0]);
-            for (j, yj) in y.iter().enumerate() {
-                if j == i {
-                    continue;
+            let (xi, yi) = (xs[i], ys[i]);
+            // eight independent accumulator lanes (a fixed order, so still deterministic)
+            const L: usize = 8;
+            let (mut z, mut fx, mut fy) = ([0f64; L], [0f64; L], [0f64; L]);
+            let mut cx = xs.chunks_exact(L);
+            let mut cy = ys.chunks_exact(L);
+            for (bx, by) in (&mut cx).zip(&mut cy) {
+                for l in 0..L {
+                    let dx = xi - bx[l];
+                    let dy = yi - by[l];
+                    let w = 1.0 / (1.0 + dx * dx + dy * dy);
+                    let w2 = w * w;
+                    z[l] += w;
+                    fx[l] += w2 * dx;
+                    fy[l] += w2 * dy;
                 }
-                let dx = y[i][0] - yj[0];
-                let dy = y[i][1] - yj[1];
-                let w = 1.0 / (1.0 + dx * dx + dy * dy);
-                z += w;
-                f[0] += w * w * dx;
-                f[1] += w * w * dy;
             }
-            *r = f;
-            z
+            for (&xj, &yj) in cx.remainder().iter().zip(cy.remainder()) {
+                let dx = xi - xj;
+                let dy = yi - yj;
+                let w = 1.0 / (1.0 + dx * dx + dy * dy);
+                z[0] += w;
+                fx[0] += w * w * dx;
+                fy[0] += w * w * dy;
+            }
+            let (z, fx, fy): (f64, f64, f64) = (z.iter().sum(), fx.iter().sum(), fy.iter().sum());
+            *r = [fx, fy];
+            z - 1.0
         })
         .collect();
     zs.iter().sum()
