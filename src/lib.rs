@@ -9,11 +9,13 @@ pub mod demo;
 pub mod error;
 pub mod inspect;
 pub mod linalg;
+pub mod map;
 pub mod output;
 pub mod plot;
 pub mod probe;
 pub mod progress;
 pub mod report;
+pub mod purity;
 pub mod select;
 
 pub use capture::{Capture, CaptureError, OpenOptions};
