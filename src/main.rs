@@ -311,7 +311,12 @@ fn run(cli: Cli) -> Result<(), Error> {
                 DemoSizeArg::Default => voxstrata::demo::DemoSize::Default,
                 DemoSizeArg::Small => voxstrata::demo::DemoSize::Small,
             };
-            let opts = voxstrata::demo::DemoOptions { out, force, seed: common.seed, size };
+            let opts = voxstrata::demo::DemoOptions {
+                out,
+                force,
+                seed: common.seed,
+                size,
+            };
             let s = voxstrata::demo::run(&opts, &progress)?;
             println!(
                 "demo: {} talkers ({} held out), {} training frames, {} frames per capture",
