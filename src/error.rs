@@ -2,6 +2,7 @@
 //! can fix it), 1 for internal failure.
 
 use crate::capture::CaptureError;
+use crate::compare::CompareError;
 use crate::output::OutputError;
 use crate::plot::PlotError;
 
@@ -11,6 +12,9 @@ pub enum Error {
     /// Reading a capture failed.
     #[error(transparent)]
     Capture(#[from] CaptureError),
+    /// Comparing two captures failed.
+    #[error(transparent)]
+    Compare(#[from] CompareError),
     /// Writing outputs failed.
     #[error(transparent)]
     Output(#[from] OutputError),
@@ -34,6 +38,7 @@ impl Error {
         match self {
             Error::Capture(_) | Error::Input(_) => 2,
             Error::Output(OutputError::Refused { .. }) => 2,
+            Error::Compare(_) => 2,
             Error::Output(_) | Error::Plot(_) | Error::NotYet(_) | Error::Internal(_) => 1,
         }
     }

@@ -5,6 +5,7 @@
 //! ([`plot`]) and the report. See `docs/design.md`.
 
 pub mod capture;
+pub mod compare;
 pub mod error;
 pub mod inspect;
 pub mod linalg;
@@ -12,6 +13,7 @@ pub mod output;
 pub mod plot;
 pub mod progress;
 pub mod select;
+pub mod stats;
 
 pub use capture::{Capture, CaptureError, OpenOptions};
 pub use error::{Error, Result};

@@ -40,6 +40,49 @@ struct CaptureArgs {
     allow_nonfinite: bool,
 }
 
+#[derive(Args, Debug, Clone)]
+struct CompareArgs {
+    /// Output folder.
+    #[arg(long, default_value = "voxstrata-compare")]
+    out: PathBuf,
+    /// Write into an output folder that already holds files.
+    #[arg(long)]
+    force: bool,
+    /// Pair frames row by row, or by utterance and frame index when the orders differ.
+    #[arg(long = "match-by", value_enum, default_value = "row")]
+    match_by: MatchByArg,
+    /// Use at most this many paired frames (seeded sample).
+    #[arg(long = "max-frames", value_name = "N")]
+    max_frames: Option<usize>,
+    /// CKA kernel (rbf uses a subsample, 2000 frames unless --max-frames says otherwise).
+    #[arg(long, value_enum, default_value = "linear")]
+    kernel: KernelArg,
+    /// HSIC estimator: full, or unbiased minibatch estimates for very many frames.
+    #[arg(long, value_enum, default_value = "full")]
+    hsic: HsicArg,
+    /// Frames per minibatch for --hsic minibatch.
+    #[arg(long = "batch-size", default_value_t = 512)]
+    batch_size: usize,
+}
+
+#[derive(clap::ValueEnum, Debug, Clone, Copy)]
+enum MatchByArg {
+    Row,
+    Utterance,
+}
+
+#[derive(clap::ValueEnum, Debug, Clone, Copy)]
+enum KernelArg {
+    Linear,
+    Rbf,
+}
+
+#[derive(clap::ValueEnum, Debug, Clone, Copy)]
+enum HsicArg {
+    Full,
+    Minibatch,
+}
+
 #[derive(Subcommand, Debug)]
 enum Command {
     /// Summarise a capture: layers, frames, speakers, label tasks, warnings.
@@ -74,6 +117,8 @@ enum Command {
         capture_b: PathBuf,
         #[command(flatten)]
         cap: CaptureArgs,
+        #[command(flatten)]
+        args: CompareArgs,
     },
     /// Run everything and write one HTML report.
     Report {
@@ -100,7 +145,7 @@ fn open_options(c: &CaptureArgs) -> Result<OpenOptions, Error> {
 
 fn run(cli: Cli) -> Result<(), Error> {
     let common = CommonOptions { seed: cli.seed, threads: cli.threads, layers: cli.layers.clone() };
-    let _progress = Progress::new(cli.quiet);
+    let progress = Progress::new(cli.quiet);
     if common.threads > 0 {
         rayon::ThreadPoolBuilder::new()
             .num_threads(common.threads)
@@ -121,7 +166,34 @@ fn run(cli: Cli) -> Result<(), Error> {
         }
         Command::Probe { .. } => Err(Error::NotYet("probe")),
         Command::Map { .. } => Err(Error::NotYet("map")),
-        Command::Compare { .. } => Err(Error::NotYet("compare")),
+        Command::Compare { capture_a, capture_b, cap, args } => {
+            use voxstrata::compare::{self, CompareOptions, Estimator, Kernel, MatchBy};
+            let oo = open_options(&cap)?;
+            let a = Capture::open(&capture_a, &oo)?;
+            let b = Capture::open(&capture_b, &oo)?;
+            let opts = CompareOptions {
+                match_by: match args.match_by {
+                    MatchByArg::Row => MatchBy::Row,
+                    MatchByArg::Utterance => MatchBy::Utterance,
+                },
+                max_frames: args.max_frames,
+                kernel: match args.kernel {
+                    KernelArg::Linear => Kernel::Linear,
+                    KernelArg::Rbf => Kernel::Rbf,
+                },
+                estimator: match args.hsic {
+                    HsicArg::Full => Estimator::Full,
+                    HsicArg::Minibatch => Estimator::Minibatch,
+                },
+                batch_size: args.batch_size,
+                ..Default::default()
+            };
+            voxstrata::output::prepare_out_dir(&args.out, args.force)?;
+            let report = compare::run(&a, &b, &opts, &common, &progress)?;
+            compare::write_outputs(&report, &args.out)?;
+            print!("{}", compare::summary_text(&report));
+            Ok(())
+        }
         Command::Report { .. } => Err(Error::NotYet("report")),
         Command::Demo { .. } => Err(Error::NotYet("demo")),
     }
