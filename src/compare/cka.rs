@@ -42,10 +42,11 @@ pub fn cross2(x: &ArrayView2<f32>, y: &ArrayView2<f32>) -> f64 {
 }
 
 /// Linear CKA from the cross term and the two Gram norms (0 when either side is constant).
+/// CKA lies in [0, 1] (Cauchy–Schwarz); rounding can overshoot by an ulp, so it is clamped.
 pub fn linear_from_parts(cross2: f64, norm_x: f64, norm_y: f64) -> f64 {
     let d = norm_x * norm_y;
     if d > 0.0 && d.is_finite() {
-        cross2 / d
+        (cross2 / d).clamp(0.0, 1.0)
     } else {
         0.0
     }

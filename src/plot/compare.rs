@@ -3,6 +3,7 @@
 //! matching layer numbers (most changed first), and probe accuracy curves of A and B with
 //! their bootstrap bands, one panel per task.
 
+use plotters::coord::types::RangedCoordf64;
 use plotters::coord::Shift;
 use plotters::prelude::*;
 
@@ -63,6 +64,45 @@ fn label_step(n: usize) -> usize {
     n.div_ceil(20).max(1)
 }
 
+/// Tick positions at the centres of cells 0, step, 2·step, ... of an axis of `n` cells.
+fn centre_ticks(n: usize, step: usize) -> Vec<f64> {
+    (0..n).step_by(step).map(|k| k as f64 + 0.5).collect()
+}
+
+/// Tick marks and labels for categorical cells, drawn by hand: plotters places its own
+/// ticks at "nice" values, while cells need them at their centres. `ticks` holds (position in
+/// data units, label); `on_x` picks the axis. Pixel positions come from the chart's mapping.
+fn draw_cell_ticks<DB: DrawingBackend>(
+    area: &DrawingArea<DB, Shift>,
+    chart: &ChartContext<DB, Cartesian2d<RangedCoordf64, RangedCoordf64>>,
+    ticks: &[(f64, String)],
+    on_x: bool,
+) -> Result<(), String> {
+    use plotters::style::text_anchor::{HPos, Pos, VPos};
+    let (xr, yr) = (chart.x_range(), chart.y_range());
+    for (v, label) in ticks {
+        let (px, py) = if on_x {
+            chart.backend_coord(&(*v, yr.start))
+        } else {
+            chart.backend_coord(&(xr.start, *v))
+        };
+        if on_x {
+            area.draw(&PathElement::new(vec![(px, py), (px, py + 5)], BLACK))
+                .map_err(e2s)?;
+            let st = text(13.0).pos(Pos::new(HPos::Center, VPos::Top));
+            area.draw(&Text::new(label.clone(), (px, py + 8), st))
+                .map_err(e2s)?;
+        } else {
+            area.draw(&PathElement::new(vec![(px - 5, py), (px, py)], BLACK))
+                .map_err(e2s)?;
+            let st = text(13.0).pos(Pos::new(HPos::Right, VPos::Center));
+            area.draw(&Text::new(label.clone(), (px - 8, py), st))
+                .map_err(e2s)?;
+        }
+    }
+    Ok(())
+}
+
 impl super::Figure for CkaHeatmap {
     fn size(&self) -> (u32, u32) {
         let c = self.cell();
@@ -84,44 +124,17 @@ impl super::Figure for CkaHeatmap {
             .y_label_area_size(56)
             .build_cartesian_2d(0f64..nb as f64, 0f64..na as f64)
             .map_err(e2s)?;
-        let (sa, sb) = (label_step(na), label_step(nb));
         chart
             .configure_mesh()
             .disable_mesh()
-            .x_labels(nb + 1)
-            .y_labels(na + 1)
-            .x_label_formatter(&|v| {
-                let j = (v - 0.5).round();
-                if (v - 0.5 - j).abs() < 1e-6
-                    && j >= 0.0
-                    && (j as usize) < lb.len()
-                    && (j as usize) % sb == 0
-                {
-                    lb[j as usize].to_string()
-                } else {
-                    String::new()
-                }
-            })
-            .y_label_formatter(&|v| {
-                // Row 0 (first A layer) at the top.
-                let i = (v - 0.5).round();
-                if (v - 0.5 - i).abs() < 1e-6 && i >= 0.0 && (i as usize) < la.len() {
-                    let k = la.len() - 1 - i as usize;
-                    if k % sa == 0 {
-                        return la[k].to_string();
-                    }
-                }
-                String::new()
-            })
+            .x_labels(0)
+            .y_labels(0)
             .x_desc(format!("layer of {}", self.names.1))
             .y_desc(format!("layer of {}", self.names.0))
             .label_style(text(13.0))
             .axis_desc_style(text(14.0))
             .draw()
             .map_err(e2s)?;
-        // Put tick positions at cell centres: plotters picks "nice" tick values, so draw the
-        // cells in a coordinate system where centres fall on k + 0.5 and let the formatter
-        // keep only those.
         let show_text = na <= super::compare::CELL_TEXT_MAX_LAYERS && nb <= CELL_TEXT_MAX_LAYERS;
         let fs = (self.cell() as f64 * 0.32).clamp(9.0, 13.0);
         for (i, row) in self.values.iter().enumerate() {
@@ -156,6 +169,17 @@ impl super::Figure for CkaHeatmap {
                 }
             }
         }
+        let xt: Vec<(f64, String)> = centre_ticks(nb, label_step(nb))
+            .into_iter()
+            .map(|v| (v, lb[v as usize].to_string()))
+            .collect();
+        // Row 0 (first A layer) is drawn at the top.
+        let yt: Vec<(f64, String)> = (0..na)
+            .step_by(label_step(na))
+            .map(|k| ((na - 1 - k) as f64 + 0.5, la[k].to_string()))
+            .collect();
+        draw_cell_ticks(&main, &chart, &xt, true)?;
+        draw_cell_ticks(&main, &chart, &yt, false)?;
         draw_colour_bar(&bar)
     }
 }
@@ -205,7 +229,10 @@ impl ChangeBars {
             return None;
         }
         Some(ChangeBars {
-            bars: m.into_iter().map(|(l, c)| (l, 1.0 - c)).collect(),
+            bars: m
+                .into_iter()
+                .map(|(l, c)| (l, (1.0 - c).max(0.0)))
+                .collect(),
             title: format!(
                 "How much each layer changed: {} vs {}",
                 r.captures[0].name, r.captures[1].name
@@ -235,23 +262,14 @@ impl super::Figure for ChangeBars {
             .y_label_area_size(62)
             .build_cartesian_2d(0f64..n as f64, 0f64..ymax)
             .map_err(e2s)?;
-        let step = label_step(n);
         chart
             .configure_mesh()
             .disable_x_mesh()
-            .x_labels(n + 1)
-            .x_label_formatter(&|v| {
-                let j = (v - 0.5).round();
-                if (v - 0.5 - j).abs() < 1e-6
-                    && j >= 0.0
-                    && (j as usize) < layers.len()
-                    && (j as usize) % step == 0
-                {
-                    layers[j as usize].to_string()
-                } else {
-                    String::new()
-                }
-            })
+            .x_labels(0)
+            .y_labels(8)
+            .max_light_lines(1)
+            .bold_line_style(RGBColor(222, 222, 222))
+            .light_line_style(RGBColor(242, 242, 242))
             .y_label_formatter(&|v| format!("{v:.2}"))
             .x_desc("layer (most changed first)")
             .y_desc("1 − CKA (same layer number)")
@@ -267,6 +285,11 @@ impl super::Figure for ChangeBars {
                 )
             }))
             .map_err(e2s)?;
+        let xt: Vec<(f64, String)> = centre_ticks(n, label_step(n))
+            .into_iter()
+            .map(|v| (v, layers[v as usize].to_string()))
+            .collect();
+        draw_cell_ticks(area, &chart, &xt, true)?;
         if n <= 24 {
             let style = text(11.0).pos(plotters::style::text_anchor::Pos::new(
                 plotters::style::text_anchor::HPos::Center,
@@ -363,7 +386,9 @@ impl super::Figure for ProbeCurves {
                 .y_label_formatter(&|v| format!("{v:.1}"))
                 .label_style(text(12.0))
                 .axis_desc_style(text(13.0))
-                .light_line_style(RGBColor(236, 236, 236))
+                .max_light_lines(1)
+                .bold_line_style(RGBColor(222, 222, 222))
+                .light_line_style(RGBColor(242, 242, 242))
                 .draw()
                 .map_err(e2s)?;
             type Getter = fn(&ProbeDelta) -> (f64, f64, f64);
