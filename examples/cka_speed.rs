@@ -25,12 +25,19 @@ fn write_capture(dir: &std::path::Path, n: usize, d: usize, layers: usize, seed:
     }
     std::fs::write(dir.join("frames.tsv"), tsv).unwrap();
     for l in 0..layers {
-        ndarray_npy::write_npy(dir.join(format!("layer_{l:02}.npy")), &random(n, d, seed * 100 + l as u64)).unwrap();
+        ndarray_npy::write_npy(
+            dir.join(format!("layer_{l:02}.npy")),
+            &random(n, d, seed * 100 + l as u64),
+        )
+        .unwrap();
     }
 }
 
 fn main() {
-    let args: Vec<usize> = std::env::args().skip(1).filter_map(|a| a.parse().ok()).collect();
+    let args: Vec<usize> = std::env::args()
+        .skip(1)
+        .filter_map(|a| a.parse().ok())
+        .collect();
     let n = args.first().copied().unwrap_or(20_000);
     let d = args.get(1).copied().unwrap_or(768);
     let layers = args.get(2).copied().unwrap_or(13);
@@ -44,7 +51,11 @@ fn main() {
     }
     let s = t.elapsed().as_secs_f64() / reps as f64;
     let flop = 2.0 * n as f64 * d as f64 * d as f64;
-    println!("at_b {n}x{d} by {n}x{d}: {:.3} s, {:.1} GFLOP/s", s, flop / s / 1e9);
+    println!(
+        "at_b {n}x{d} by {n}x{d}: {:.3} s, {:.1} GFLOP/s",
+        s,
+        flop / s / 1e9
+    );
     drop((x, y));
 
     let tmp = std::env::temp_dir().join(format!("voxstrata-cka-speed-{}", std::process::id()));
@@ -54,7 +65,14 @@ fn main() {
     let a = Capture::open(&tmp.join("a"), &open).unwrap();
     let b = Capture::open(&tmp.join("b"), &open).unwrap();
     let t = Instant::now();
-    let r = compare::run(&a, &b, &CompareOptions::default(), &CommonOptions::default(), &Progress::hidden()).unwrap();
+    let r = compare::run(
+        &a,
+        &b,
+        &CompareOptions::default(),
+        &CommonOptions::default(),
+        &Progress::hidden(),
+    )
+    .unwrap();
     let s = t.elapsed().as_secs_f64();
     let products = (layers * layers + layers) as f64;
     println!(

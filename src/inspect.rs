@@ -105,7 +105,10 @@ pub fn summarise(cap: &Capture) -> Summary {
         if m.nrows() > 1 {
             for col in m.columns() {
                 let first = col[0];
-                if col.iter().all(|&v| v == first || (v.is_nan() && first.is_nan())) {
+                if col
+                    .iter()
+                    .all(|&v| v == first || (v.is_nan() && first.is_nan()))
+                {
                     constant += 1;
                 }
             }
@@ -142,10 +145,21 @@ pub fn summarise(cap: &Capture) -> Summary {
         let counts = t.class_counts();
         let mut order: Vec<usize> = (0..counts.len()).collect();
         order.sort_by(|&a, &b| counts[a].cmp(&counts[b]).then(a.cmp(&b)));
-        let cc = |k: usize| ClassCount { label: t.classes[k].clone(), frames: counts[k] };
-        let small: Vec<usize> = order.iter().copied().filter(|&k| counts[k] < MIN_CLASS_FRAMES).collect();
+        let cc = |k: usize| ClassCount {
+            label: t.classes[k].clone(),
+            frames: counts[k],
+        };
+        let small: Vec<usize> = order
+            .iter()
+            .copied()
+            .filter(|&k| counts[k] < MIN_CLASS_FRAMES)
+            .collect();
         if !small.is_empty() {
-            let names: Vec<String> = small.iter().take(8).map(|&k| format!("'{}' ({})", t.classes[k], counts[k])).collect();
+            let names: Vec<String> = small
+                .iter()
+                .take(8)
+                .map(|&k| format!("'{}' ({})", t.classes[k], counts[k]))
+                .collect();
             warnings.push(format!(
                 "task {}: {} classes have fewer than {MIN_CLASS_FRAMES} frames: {}{}",
                 t.name,
@@ -155,7 +169,10 @@ pub fn summarise(cap: &Capture) -> Summary {
             ));
         }
         if counts.len() < 2 {
-            warnings.push(format!("task {}: fewer than 2 classes; it cannot be probed", t.name));
+            warnings.push(format!(
+                "task {}: fewer than 2 classes; it cannot be probed",
+                t.name
+            ));
         }
         let unl = t.codes.iter().filter(|&&c| c == UNLABELLED).count();
         tasks.push(TaskInfo {
@@ -168,7 +185,10 @@ pub fn summarise(cap: &Capture) -> Summary {
         });
     }
     if cap.frames.speakers.len() < 2 {
-        warnings.push("only one speaker: speaker-disjoint probes are impossible (use --split utterance)".into());
+        warnings.push(
+            "only one speaker: speaker-disjoint probes are impossible (use --split utterance)"
+                .into(),
+        );
     }
     if !cap.nonfinite_frames.is_empty() {
         warnings.push(format!(
@@ -231,17 +251,36 @@ pub fn render_text(s: &Summary) -> String {
     );
     if let serde_json::Value::Object(m) = &s.notes {
         for (k, v) in m {
-            let _ = writeln!(o, "note      {k}: {}", v.as_str().map(str::to_string).unwrap_or_else(|| v.to_string()));
+            let _ = writeln!(
+                o,
+                "note      {k}: {}",
+                v.as_str()
+                    .map(str::to_string)
+                    .unwrap_or_else(|| v.to_string())
+            );
         }
     }
     let _ = writeln!(o, "\nlayers ({})", s.layers.len());
-    let _ = writeln!(o, "  {:>5}  {:>6}  {:<8}  {:<26}  file", "layer", "dim", "dtype", "layout");
+    let _ = writeln!(
+        o,
+        "  {:>5}  {:>6}  {:<8}  {:<26}  file",
+        "layer", "dim", "dtype", "layout"
+    );
     for l in &s.layers {
-        let _ = writeln!(o, "  {:>5}  {:>6}  {:<8}  {:<26}  {}", l.layer, l.dim, l.dtype, l.layout, l.file);
+        let _ = writeln!(
+            o,
+            "  {:>5}  {:>6}  {:<8}  {:<26}  {}",
+            l.layer, l.dim, l.dtype, l.layout, l.file
+        );
     }
     let _ = writeln!(o, "\nlabel tasks ({})", s.tasks.len());
     for t in &s.tasks {
-        let show = |v: &[ClassCount]| v.iter().map(|c| format!("{} {}", c.label, c.frames)).collect::<Vec<_>>().join(", ");
+        let show = |v: &[ClassCount]| {
+            v.iter()
+                .map(|c| format!("{} {}", c.label, c.frames))
+                .collect::<Vec<_>>()
+                .join(", ")
+        };
         let _ = writeln!(
             o,
             "  {:<10} {:>4} classes  {:>8} labelled  {:>7} unlabelled   smallest: {}   largest: {}",
@@ -254,7 +293,11 @@ pub fn render_text(s: &Summary) -> String {
         );
     }
     if s.warnings.is_empty() {
-        let _ = writeln!(o, "\nno warnings (NaN/Inf and constant columns checked on {} sampled frames per layer)", SCAN_ROWS.min(s.frames));
+        let _ = writeln!(
+            o,
+            "\nno warnings (NaN/Inf and constant columns checked on {} sampled frames per layer)",
+            SCAN_ROWS.min(s.frames)
+        );
     } else {
         let _ = writeln!(o, "\nwarnings ({})", s.warnings.len());
         for w in &s.warnings {

@@ -20,7 +20,7 @@ pub use error::{Error, Result};
 pub use progress::Progress;
 
 /// Options shared by every analysis command.
-#[derive(Clone, Debug)]
+#[derive(Clone, Debug, Default)]
 pub struct CommonOptions {
     /// Seed for every random choice.
     pub seed: u64,
@@ -28,10 +28,4 @@ pub struct CommonOptions {
     pub threads: usize,
     /// Layer numbers to analyse (None: all).
     pub layers: Option<capture::LayerSelection>,
-}
-
-impl Default for CommonOptions {
-    fn default() -> Self {
-        CommonOptions { seed: 0, threads: 0, layers: None }
-    }
 }

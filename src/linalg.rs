@@ -43,7 +43,9 @@ pub fn at_b(a: &ArrayView2<f32>, b: &ArrayView2<f32>) -> Array2<f64> {
         .collect();
     let mut out = Array2::<f64>::zeros((p, q));
     for part in parts {
-        Zip::from(&mut out).and(&part).for_each(|o, &v| *o += v as f64);
+        Zip::from(&mut out)
+            .and(&part)
+            .for_each(|o, &v| *o += v as f64);
     }
     out
 }

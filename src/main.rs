@@ -9,7 +9,11 @@ use voxstrata::capture::{LabelOptions, LayerSelection};
 use voxstrata::{Capture, CommonOptions, Error, OpenOptions, Progress};
 
 #[derive(Parser, Debug)]
-#[command(name = "voxstrata", version, about = "What each layer of a speech model encodes: probes, maps, cluster purity and checkpoint comparison")]
+#[command(
+    name = "voxstrata",
+    version,
+    about = "What each layer of a speech model encodes: probes, maps, cluster purity and checkpoint comparison"
+)]
 struct Cli {
     #[command(subcommand)]
     command: Command,
@@ -136,15 +140,25 @@ enum Command {
 }
 
 fn open_options(c: &CaptureArgs) -> Result<OpenOptions, Error> {
-    let mut labels = LabelOptions { drop: c.drop_label.clone(), ..Default::default() };
+    let mut labels = LabelOptions {
+        drop: c.drop_label.clone(),
+        ..Default::default()
+    };
     if let Some(p) = &c.merge_labels {
         labels.merge = voxstrata::capture::labels::read_merge_map(p)?;
     }
-    Ok(OpenOptions { labels, allow_nonfinite: c.allow_nonfinite })
+    Ok(OpenOptions {
+        labels,
+        allow_nonfinite: c.allow_nonfinite,
+    })
 }
 
 fn run(cli: Cli) -> Result<(), Error> {
-    let common = CommonOptions { seed: cli.seed, threads: cli.threads, layers: cli.layers.clone() };
+    let common = CommonOptions {
+        seed: cli.seed,
+        threads: cli.threads,
+        layers: cli.layers.clone(),
+    };
     let progress = Progress::new(cli.quiet);
     if common.threads > 0 {
         rayon::ThreadPoolBuilder::new()
@@ -157,7 +171,8 @@ fn run(cli: Cli) -> Result<(), Error> {
             let c = Capture::open(&capture, &open_options(&cap)?)?;
             let s = voxstrata::inspect::summarise(&c);
             if json {
-                let text = serde_json::to_string_pretty(&s).map_err(|e| Error::Internal(e.to_string()))?;
+                let text =
+                    serde_json::to_string_pretty(&s).map_err(|e| Error::Internal(e.to_string()))?;
                 println!("{text}");
             } else {
                 print!("{}", voxstrata::inspect::render_text(&s));
@@ -166,7 +181,12 @@ fn run(cli: Cli) -> Result<(), Error> {
         }
         Command::Probe { .. } => Err(Error::NotYet("probe")),
         Command::Map { .. } => Err(Error::NotYet("map")),
-        Command::Compare { capture_a, capture_b, cap, args } => {
+        Command::Compare {
+            capture_a,
+            capture_b,
+            cap,
+            args,
+        } => {
             use voxstrata::compare::{self, CompareOptions, Estimator, Kernel, MatchBy};
             let oo = open_options(&cap)?;
             let a = Capture::open(&capture_a, &oo)?;

@@ -40,14 +40,23 @@ pub enum OutputError {
 }
 
 fn io(path: &Path, e: std::io::Error) -> OutputError {
-    OutputError::Io { path: path.to_path_buf(), source: e }
+    OutputError::Io {
+        path: path.to_path_buf(),
+        source: e,
+    }
 }
 
 /// Write `bytes` to `path` through a temporary file in the same folder and a rename.
 pub fn write_atomic(path: &Path, bytes: &[u8]) -> Result<(), OutputError> {
-    let dir = path.parent().filter(|p| !p.as_os_str().is_empty()).unwrap_or(Path::new("."));
+    let dir = path
+        .parent()
+        .filter(|p| !p.as_os_str().is_empty())
+        .unwrap_or(Path::new("."));
     std::fs::create_dir_all(dir).map_err(|e| io(dir, e))?;
-    let name = path.file_name().map(|n| n.to_string_lossy().into_owned()).unwrap_or_default();
+    let name = path
+        .file_name()
+        .map(|n| n.to_string_lossy().into_owned())
+        .unwrap_or_default();
     let tmp = dir.join(format!(".{name}.partial-{}", std::process::id()));
     let res = (|| {
         let mut f = std::fs::File::create(&tmp)?;
@@ -66,8 +75,10 @@ pub fn write_atomic(path: &Path, bytes: &[u8]) -> Result<(), OutputError> {
 pub fn write_npy_f32(path: &Path, a: &ndarray::ArrayView2<f32>) -> Result<(), OutputError> {
     let mut buf = Vec::new();
     let std = a.as_standard_layout();
-    ndarray_npy::WriteNpyExt::write_npy(&std, &mut buf)
-        .map_err(|e| OutputError::Encode { path: path.to_path_buf(), message: e.to_string() })?;
+    ndarray_npy::WriteNpyExt::write_npy(&std, &mut buf).map_err(|e| OutputError::Encode {
+        path: path.to_path_buf(),
+        message: e.to_string(),
+    })?;
     write_atomic(path, &buf)
 }
 
@@ -75,8 +86,10 @@ pub fn write_npy_f32(path: &Path, a: &ndarray::ArrayView2<f32>) -> Result<(), Ou
 pub fn write_npy_u64(path: &Path, a: &[u64]) -> Result<(), OutputError> {
     let arr = ndarray::Array1::from(a.to_vec());
     let mut buf = Vec::new();
-    ndarray_npy::WriteNpyExt::write_npy(&arr, &mut buf)
-        .map_err(|e| OutputError::Encode { path: path.to_path_buf(), message: e.to_string() })?;
+    ndarray_npy::WriteNpyExt::write_npy(&arr, &mut buf).map_err(|e| OutputError::Encode {
+        path: path.to_path_buf(),
+        message: e.to_string(),
+    })?;
     write_atomic(path, &buf)
 }
 
@@ -126,11 +139,16 @@ pub fn write_records<T: Serialize>(
         extra,
     };
     let json_path = dir.join(format!("{name}.json"));
-    let mut json = serde_json::to_vec_pretty(&env)
-        .map_err(|e| OutputError::Encode { path: json_path.clone(), message: e.to_string() })?;
+    let mut json = serde_json::to_vec_pretty(&env).map_err(|e| OutputError::Encode {
+        path: json_path.clone(),
+        message: e.to_string(),
+    })?;
     json.push(b'\n');
     let csv_path = dir.join(format!("{name}.csv"));
-    let csv = records_to_csv(records).map_err(|message| OutputError::Encode { path: csv_path.clone(), message })?;
+    let csv = records_to_csv(records).map_err(|message| OutputError::Encode {
+        path: csv_path.clone(),
+        message,
+    })?;
     write_atomic(&json_path, &json)?;
     write_atomic(&csv_path, &csv)
 }
@@ -138,12 +156,15 @@ pub fn write_records<T: Serialize>(
 /// Records as CSV (RFC 4180 quoting), header from the field names. Floats are written with
 /// Rust's shortest round-trip form so CSV and JSON agree exactly.
 pub fn records_to_csv<T: Serialize>(records: &[T]) -> Result<Vec<u8>, String> {
-    let mut w = csv::WriterBuilder::new().has_headers(true).from_writer(Vec::new());
+    let mut w = csv::WriterBuilder::new()
+        .has_headers(true)
+        .from_writer(Vec::new());
     for r in records {
         w.serialize(r).map_err(|e| e.to_string())?;
     }
     if records.is_empty() {
-        w.write_record(std::iter::empty::<&str>()).map_err(|e| e.to_string())?;
+        w.write_record(std::iter::empty::<&str>())
+            .map_err(|e| e.to_string())?;
     }
     w.into_inner().map_err(|e| e.to_string())
 }
@@ -159,7 +180,10 @@ pub fn prepare_out_dir(dir: &Path, force: bool) -> Result<(), OutputError> {
                 found: "a file".into(),
             });
         }
-        let non_empty = std::fs::read_dir(dir).map_err(|e| io(dir, e))?.next().is_some();
+        let non_empty = std::fs::read_dir(dir)
+            .map_err(|e| io(dir, e))?
+            .next()
+            .is_some();
         if non_empty && !force {
             return Err(OutputError::Refused {
                 path: dir.to_path_buf(),
@@ -184,7 +208,11 @@ mod tests {
 
     #[test]
     fn csv_quotes_awkward_labels() {
-        let rows = vec![Row { layer: 1, label: "a,\"b\"\nc".into(), value: 0.5 }];
+        let rows = vec![Row {
+            layer: 1,
+            label: "a,\"b\"\nc".into(),
+            value: 0.5,
+        }];
         let s = String::from_utf8(records_to_csv(&rows).unwrap()).unwrap();
         assert_eq!(s, "layer,label,value\n1,\"a,\"\"b\"\"\nc\",0.5\n");
     }
@@ -193,7 +221,10 @@ mod tests {
     fn atomic_write_leaves_no_temporary() {
         let d = tempfile::tempdir().unwrap();
         write_atomic(&d.path().join("x.json"), b"{}").unwrap();
-        let names: Vec<_> = std::fs::read_dir(d.path()).unwrap().map(|e| e.unwrap().file_name()).collect();
+        let names: Vec<_> = std::fs::read_dir(d.path())
+            .unwrap()
+            .map(|e| e.unwrap().file_name())
+            .collect();
         assert_eq!(names, vec![std::ffi::OsString::from("x.json")]);
     }
 }

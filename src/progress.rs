@@ -21,7 +21,9 @@ impl Progress {
     /// A reporter that shows bars on stderr if `quiet` is false and stderr is a terminal.
     pub fn new(quiet: bool) -> Self {
         use std::io::IsTerminal;
-        Progress { visible: !quiet && std::io::stderr().is_terminal() }
+        Progress {
+            visible: !quiet && std::io::stderr().is_terminal(),
+        }
     }
 
     /// A reporter that never shows anything (tests, library use).
@@ -36,9 +38,11 @@ impl Progress {
         }
         let bar = ProgressBar::with_draw_target(Some(total), ProgressDrawTarget::stderr());
         bar.set_style(
-            ProgressStyle::with_template("{msg:>24} [{bar:30}] {pos}/{len} {elapsed_precise} left {eta}")
-                .unwrap_or_else(|_| ProgressStyle::default_bar())
-                .progress_chars("=> "),
+            ProgressStyle::with_template(
+                "{msg:>24} [{bar:30}] {pos}/{len} {elapsed_precise} left {eta}",
+            )
+            .unwrap_or_else(|_| ProgressStyle::default_bar())
+            .progress_chars("=> "),
         );
         bar.set_message(what.to_string());
         bar.enable_steady_tick(Duration::from_millis(200));

@@ -39,22 +39,6 @@ impl LabelTask {
     pub fn n_unlabelled(&self) -> usize {
         self.codes.iter().filter(|&&k| k == UNLABELLED).count()
     }
-
-    fn from_strings(name: &str, values: Vec<Option<String>>) -> LabelTask {
-        let mut index: HashMap<String, u32> = HashMap::new();
-        let mut classes = Vec::new();
-        let codes = values
-            .into_iter()
-            .map(|v| match v {
-                None => UNLABELLED,
-                Some(s) => *index.entry(s.clone()).or_insert_with(|| {
-                    classes.push(s);
-                    (classes.len() - 1) as u32
-                }),
-            })
-            .collect();
-        LabelTask { name: name.to_string(), classes, codes }
-    }
 }
 
 /// Everything known about the frames of a capture apart from the activations.
@@ -82,7 +66,10 @@ impl FrameTable {
 
     /// Speaker index of each frame.
     pub fn frame_speaker(&self) -> Vec<u32> {
-        self.frame_utt.iter().map(|&u| self.utt_speaker[u as usize]).collect()
+        self.frame_utt
+            .iter()
+            .map(|&u| self.utt_speaker[u as usize])
+            .collect()
     }
 
     /// The task of that name.
@@ -126,21 +113,40 @@ pub struct Columns<'a> {
     pub speaker: &'a str,
 }
 
-/// Read a tab-separated table: header fields and rows, with row numbers for errors.
-/// Rows are 1-based file lines (the header is line 1).
-pub fn read_tsv(path: &Path) -> Result<(Vec<String>, Vec<(usize, Vec<String>)>), CaptureError> {
-    let bytes = std::fs::read(path).map_err(|e| CaptureError::io(path, e))?;
-    let text = std::str::from_utf8(&bytes).map_err(|e| {
-        let line = bytes[..e.valid_up_to()].iter().filter(|&&b| b == b'\n').count() + 1;
+/// A parsed table: header fields and rows, each with its 1-based line number.
+pub type Table = (Vec<String>, Vec<(usize, Vec<String>)>);
+
+fn utf8_text<'a>(path: &Path, bytes: &'a [u8]) -> Result<&'a str, CaptureError> {
+    let text = std::str::from_utf8(bytes).map_err(|e| {
+        let line = bytes[..e.valid_up_to()]
+            .iter()
+            .filter(|&&b| b == b'\n')
+            .count()
+            + 1;
         CaptureError::Table {
             path: path.to_path_buf(),
             row: line,
             field: "text".into(),
             expected: "UTF-8 text".into(),
-            found: format!("a byte that is not UTF-8 at byte offset {}", e.valid_up_to()),
+            found: format!(
+                "a byte that is not UTF-8 at byte offset {}",
+                e.valid_up_to()
+            ),
         }
     })?;
-    let text = text.strip_prefix('\u{feff}').unwrap_or(text);
+    Ok(text.strip_prefix('\u{feff}').unwrap_or(text))
+}
+
+/// Stream a tab-separated table: calls `row(1, header)` first, then `row(line, fields)` for
+/// every data row (blank lines and `#` comments skipped; line numbers are 1-based, the header
+/// is line 1). Rows with the wrong number of fields are an error naming the line. Returns the
+/// header.
+pub fn for_each_row(
+    path: &Path,
+    mut row: impl FnMut(usize, &[&str]) -> Result<(), CaptureError>,
+) -> Result<Vec<String>, CaptureError> {
+    let bytes = std::fs::read(path).map_err(|e| CaptureError::io(path, e))?;
+    let text = utf8_text(path, &bytes)?;
     let mut lines = text.split('\n').enumerate().filter_map(|(i, l)| {
         let l = l.strip_suffix('\r').unwrap_or(l);
         if l.is_empty() || l.starts_with('#') {
@@ -157,31 +163,91 @@ pub fn read_tsv(path: &Path) -> Result<(Vec<String>, Vec<(usize, Vec<String>)>),
         found: "an empty file".into(),
     })?;
     let header: Vec<String> = head.split('\t').map(|s| s.trim().to_string()).collect();
-    let mut rows = Vec::new();
+    let mut fields: Vec<&str> = header.iter().map(String::as_str).collect();
+    row(1, &fields)?;
     for (line, l) in lines {
-        let fields: Vec<String> = l.split('\t').map(|s| s.trim().to_string()).collect();
+        fields.clear();
+        fields.extend(l.split('\t').map(str::trim));
         if fields.len() != header.len() {
             return Err(CaptureError::Table {
                 path: path.to_path_buf(),
                 row: line,
                 field: "row".into(),
-                expected: format!("{} tab-separated fields ({})", header.len(), header.join(", ")),
+                expected: format!(
+                    "{} tab-separated fields ({})",
+                    header.len(),
+                    header.join(", ")
+                ),
                 found: format!("{} fields", fields.len()),
             });
         }
-        rows.push((line, fields));
+        row(line, &fields)?;
     }
+    Ok(header)
+}
+
+/// Read a (small) tab-separated table whole: header fields and rows with line numbers.
+pub fn read_tsv(path: &Path) -> Result<Table, CaptureError> {
+    let mut rows = Vec::new();
+    let header = for_each_row(path, |line, f| {
+        if line > 1 {
+            rows.push((line, f.iter().map(|s| s.to_string()).collect()));
+        }
+        Ok(())
+    })?;
     Ok((header, rows))
 }
 
+/// Interns the values of one task column as codes.
+struct TaskBuilder {
+    index: HashMap<String, u32>,
+    classes: Vec<String>,
+    codes: Vec<u32>,
+}
+
+impl TaskBuilder {
+    fn new() -> Self {
+        TaskBuilder {
+            index: HashMap::new(),
+            classes: Vec::new(),
+            codes: Vec::new(),
+        }
+    }
+    fn push(&mut self, v: Option<&str>) {
+        let code = match v {
+            None => UNLABELLED,
+            Some(s) => match self.index.get(s) {
+                Some(&k) => k,
+                None => {
+                    self.classes.push(s.to_string());
+                    let k = (self.classes.len() - 1) as u32;
+                    self.index.insert(s.to_string(), k);
+                    k
+                }
+            },
+        };
+        self.codes.push(code);
+    }
+    fn finish(self, name: &str) -> LabelTask {
+        LabelTask {
+            name: name.to_string(),
+            classes: self.classes,
+            codes: self.codes,
+        }
+    }
+}
+
 fn column(path: &Path, header: &[String], name: &str) -> Result<usize, CaptureError> {
-    header.iter().position(|h| h == name).ok_or_else(|| CaptureError::Table {
-        path: path.to_path_buf(),
-        row: 1,
-        field: name.into(),
-        expected: format!("a column named '{name}'"),
-        found: format!("columns {}", header.join(", ")),
-    })
+    header
+        .iter()
+        .position(|h| h == name)
+        .ok_or_else(|| CaptureError::Table {
+            path: path.to_path_buf(),
+            row: 1,
+            field: name.into(),
+            expected: format!("a column named '{name}'"),
+            found: format!("columns {}", header.join(", ")),
+        })
 }
 
 struct Builder {
@@ -215,7 +281,7 @@ impl Builder {
     }
 }
 
-fn clean(opts: &LabelOptions, v: &str) -> Option<String> {
+fn clean<'a>(opts: &'a LabelOptions, v: &'a str) -> Option<&'a str> {
     if v.is_empty() {
         return None;
     }
@@ -223,7 +289,7 @@ fn clean(opts: &LabelOptions, v: &str) -> Option<String> {
     if opts.drop.iter().any(|d| d == v) {
         None
     } else {
-        Some(v.to_string())
+        Some(v)
     }
 }
 
@@ -231,7 +297,10 @@ fn speaker_task(b: &Builder, frame_utt: &[u32]) -> LabelTask {
     LabelTask {
         name: "speaker".into(),
         classes: b.speakers.clone(),
-        codes: frame_utt.iter().map(|&u| b.utt_speaker[u as usize]).collect(),
+        codes: frame_utt
+            .iter()
+            .map(|&u| b.utt_speaker[u as usize])
+            .collect(),
     }
 }
 
@@ -241,50 +310,52 @@ pub fn read_frames_tsv(
     cols: &Columns,
     opts: &LabelOptions,
 ) -> Result<FrameTable, CaptureError> {
-    let (header, rows) = read_tsv(path)?;
-    let ucol = column(path, &header, cols.utterance)?;
-    let scol = column(path, &header, cols.speaker)?;
-    let mut task_cols: Vec<usize> = (0..header.len()).filter(|&c| c != ucol && c != scol).collect();
-    if !opts.columns.is_empty() {
-        for want in &opts.columns {
-            if want != "speaker" {
-                column(path, &header, want)?;
-            }
-        }
-        task_cols.retain(|&c| opts.columns.contains(&header[c]));
-    }
-    if rows.is_empty() {
-        return Err(CaptureError::Table {
-            path: path.to_path_buf(),
-            row: 2,
-            field: "rows".into(),
-            expected: "one row per frame".into(),
-            found: "a header and no rows".into(),
-        });
-    }
     let mut b = Builder::new();
-    let mut frame_utt = Vec::with_capacity(rows.len());
-    let mut frame_pos = Vec::with_capacity(rows.len());
-    let mut values: Vec<Vec<Option<String>>> = vec![Vec::with_capacity(rows.len()); task_cols.len()];
-    for (line, f) in &rows {
-        let utt = &f[ucol];
-        let spk = &f[scol];
+    let mut frame_utt = Vec::new();
+    let mut frame_pos = Vec::new();
+    let (mut ucol, mut scol) = (0usize, 0usize);
+    let mut task_cols: Vec<usize> = Vec::new();
+    let mut builders: Vec<TaskBuilder> = Vec::new();
+    let header = for_each_row(path, |line, f| {
+        if line == 1 {
+            let head: Vec<String> = f.iter().map(|s| s.to_string()).collect();
+            ucol = column(path, &head, cols.utterance)?;
+            scol = column(path, &head, cols.speaker)?;
+            task_cols = (0..head.len())
+                .filter(|&c| c != ucol && c != scol)
+                .collect();
+            if !opts.columns.is_empty() {
+                for want in &opts.columns {
+                    if want != "speaker" {
+                        column(path, &head, want)?;
+                    }
+                }
+                task_cols.retain(|&c| opts.columns.contains(&head[c]));
+            }
+            builders = task_cols.iter().map(|_| TaskBuilder::new()).collect();
+            return Ok(());
+        }
+        let (utt, spk) = (f[ucol], f[scol]);
         if utt.is_empty() || spk.is_empty() {
             return Err(CaptureError::Table {
                 path: path.to_path_buf(),
-                row: *line,
-                field: if utt.is_empty() { cols.utterance.into() } else { cols.speaker.into() },
+                row: line,
+                field: if utt.is_empty() {
+                    cols.utterance.into()
+                } else {
+                    cols.speaker.into()
+                },
                 expected: "a non-empty name".into(),
                 found: "an empty field".into(),
             });
         }
         let s = b.speaker(spk);
-        let u = match b.utt_index.get(utt.as_str()) {
+        let u = match b.utt_index.get(utt) {
             Some(&u) => {
                 if b.utt_speaker[u as usize] != s {
                     return Err(CaptureError::Table {
                         path: path.to_path_buf(),
-                        row: *line,
+                        row: line,
                         field: cols.speaker.into(),
                         expected: format!(
                             "speaker '{}' (as on earlier rows of utterance '{utt}')",
@@ -296,25 +367,35 @@ pub fn read_frames_tsv(
                 u
             }
             None => {
-                b.utterances.push(utt.clone());
+                b.utterances.push(utt.to_string());
                 b.utt_speaker.push(s);
                 b.utt_len.push(0);
                 let u = (b.utterances.len() - 1) as u32;
-                b.utt_index.insert(utt.clone(), u);
+                b.utt_index.insert(utt.to_string(), u);
                 u
             }
         };
         frame_utt.push(u);
         frame_pos.push(b.utt_len[u as usize]);
         b.utt_len[u as usize] += 1;
-        for (k, &c) in task_cols.iter().enumerate() {
-            values[k].push(clean(opts, &f[c]));
+        for (tb, &c) in builders.iter_mut().zip(task_cols.iter()) {
+            tb.push(clean(opts, f[c]));
         }
+        Ok(())
+    })?;
+    if frame_utt.is_empty() {
+        return Err(CaptureError::Table {
+            path: path.to_path_buf(),
+            row: 2,
+            field: "rows".into(),
+            expected: "one row per frame".into(),
+            found: "a header and no rows".into(),
+        });
     }
-    let mut tasks: Vec<LabelTask> = task_cols
-        .iter()
-        .zip(values)
-        .map(|(&c, v)| LabelTask::from_strings(&header[c], v))
+    let mut tasks: Vec<LabelTask> = builders
+        .into_iter()
+        .zip(&task_cols)
+        .map(|(tb, &c)| tb.finish(&header[c]))
         .collect();
     tasks.push(speaker_task(&b, &frame_utt));
     Ok(FrameTable {
@@ -391,7 +472,8 @@ pub fn read_segments(
         b.utterances.push(f[ucol].clone());
         b.utt_speaker.push(s);
         b.utt_len.push(n);
-        b.utt_index.insert(f[ucol].clone(), (b.utterances.len() - 1) as u32);
+        b.utt_index
+            .insert(f[ucol].clone(), (b.utterances.len() - 1) as u32);
     }
 
     let (sh, srows) = read_tsv(seg_path)?;
@@ -460,7 +542,7 @@ pub fn read_segments(
     let total: usize = b.utt_len.iter().map(|&n| n as usize).sum();
     let mut frame_utt = Vec::with_capacity(total);
     let mut frame_pos = Vec::with_capacity(total);
-    let mut values: Vec<Option<String>> = Vec::with_capacity(total);
+    let mut values = TaskBuilder::new();
     for (u, segs) in per_utt.iter_mut().enumerate() {
         segs.sort_by(|a, b| a.0.total_cmp(&b.0));
         for w in segs.windows(2) {
@@ -494,7 +576,7 @@ pub fn read_segments(
             values.push(label);
         }
     }
-    let mut tasks = vec![LabelTask::from_strings(label_name, values)];
+    let mut tasks = vec![values.finish(label_name)];
     tasks.push(speaker_task(&b, &frame_utt));
     Ok(FrameTable {
         utterances: b.utterances,
@@ -544,11 +626,17 @@ mod tests {
 
     fn write(dir: &Path, name: &str, text: &str) -> std::path::PathBuf {
         let p = dir.join(name);
-        std::fs::File::create(&p).unwrap().write_all(text.as_bytes()).unwrap();
+        std::fs::File::create(&p)
+            .unwrap()
+            .write_all(text.as_bytes())
+            .unwrap();
         p
     }
 
-    const COLS: Columns = Columns { utterance: "utterance", speaker: "speaker" };
+    const COLS: Columns = Columns {
+        utterance: "utterance",
+        speaker: "speaker",
+    };
 
     /// Hand-worked example (common practice: 25 ms window, 10 ms hop). Frame i covers
     /// [10i, 10i + 25) ms, so its centre is 10i + 12.5 ms:
@@ -558,7 +646,11 @@ mod tests {
     #[test]
     fn segments_map_to_frames_by_centre_time() {
         let d = tempfile::tempdir().unwrap();
-        let u = write(d.path(), "utterances.tsv", "utterance\tspeaker\tframes\nu1\tA\t6\n");
+        let u = write(
+            d.path(),
+            "utterances.tsv",
+            "utterance\tspeaker\tframes\nu1\tA\t6\n",
+        );
         let s = write(
             d.path(),
             "segments.tsv",
@@ -569,7 +661,10 @@ mod tests {
             &s,
             &COLS,
             "phone",
-            Timing { hop_s: 0.010, win_s: 0.025 },
+            Timing {
+                hop_s: 0.010,
+                win_s: 0.025,
+            },
             &LabelOptions::default(),
         )
         .unwrap();
@@ -577,7 +672,13 @@ mod tests {
         let got: Vec<&str> = ph
             .codes
             .iter()
-            .map(|&c| if c == UNLABELLED { "-" } else { ph.classes[c as usize].as_str() })
+            .map(|&c| {
+                if c == UNLABELLED {
+                    "-"
+                } else {
+                    ph.classes[c as usize].as_str()
+                }
+            })
             .collect();
         assert_eq!(got, vec!["sil", "sil", "a", "a", "s", "-"]);
     }
@@ -585,14 +686,28 @@ mod tests {
     #[test]
     fn overlapping_segments_name_the_row() {
         let d = tempfile::tempdir().unwrap();
-        let u = write(d.path(), "utterances.tsv", "utterance\tspeaker\tframes\nu1\tA\t6\n");
+        let u = write(
+            d.path(),
+            "utterances.tsv",
+            "utterance\tspeaker\tframes\nu1\tA\t6\n",
+        );
         let s = write(
             d.path(),
             "segments.tsv",
             "utterance\tstart_s\tend_s\tlabel\nu1\t0.0\t0.03\tsil\nu1\t0.02\t0.05\ta\n",
         );
-        let e = read_segments(&u, &s, &COLS, "phone", Timing { hop_s: 0.01, win_s: 0.01 }, &LabelOptions::default())
-            .unwrap_err();
+        let e = read_segments(
+            &u,
+            &s,
+            &COLS,
+            "phone",
+            Timing {
+                hop_s: 0.01,
+                win_s: 0.01,
+            },
+            &LabelOptions::default(),
+        )
+        .unwrap_err();
         let m = e.to_string();
         assert!(m.contains("row 3") && m.contains("overlap"), "{m}");
     }
@@ -600,9 +715,18 @@ mod tests {
     #[test]
     fn wrong_field_count_names_the_row() {
         let d = tempfile::tempdir().unwrap();
-        let p = write(d.path(), "frames.tsv", "utterance\tspeaker\tphone\nu\ts\ta\nu\ts\n");
-        let m = read_frames_tsv(&p, &COLS, &LabelOptions::default()).unwrap_err().to_string();
-        assert!(m.contains("row 3") && m.contains("3 tab-separated fields"), "{m}");
+        let p = write(
+            d.path(),
+            "frames.tsv",
+            "utterance\tspeaker\tphone\nu\ts\ta\nu\ts\n",
+        );
+        let m = read_frames_tsv(&p, &COLS, &LabelOptions::default())
+            .unwrap_err()
+            .to_string();
+        assert!(
+            m.contains("row 3") && m.contains("3 tab-separated fields"),
+            "{m}"
+        );
     }
 
     #[test]
@@ -613,7 +737,10 @@ mod tests {
             "frames.tsv",
             "utterance\tspeaker\tphone\nu\tsil\tsil\nu\tsil\taa\nu\tsil\tao\n",
         );
-        let mut o = LabelOptions { drop: vec!["sil".into()], ..Default::default() };
+        let mut o = LabelOptions {
+            drop: vec!["sil".into()],
+            ..Default::default()
+        };
         o.merge.insert("ao".into(), "aa".into());
         let t = read_frames_tsv(&p, &COLS, &o).unwrap();
         let ph = t.task("phone").unwrap();

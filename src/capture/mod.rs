@@ -71,10 +71,18 @@ pub enum CaptureError {
 
 impl CaptureError {
     pub(crate) fn io(path: &Path, source: std::io::Error) -> Self {
-        CaptureError::Io { path: path.to_path_buf(), source }
+        CaptureError::Io {
+            path: path.to_path_buf(),
+            source,
+        }
     }
 
-    fn invalid(path: &Path, what: &str, expected: impl Into<String>, found: impl Into<String>) -> Self {
+    fn invalid(
+        path: &Path,
+        what: &str,
+        expected: impl Into<String>,
+        found: impl Into<String>,
+    ) -> Self {
         CaptureError::Invalid {
             path: path.to_path_buf(),
             what: what.into(),
@@ -198,7 +206,9 @@ pub struct Capture {
 
 /// Parse a pattern like `layer_{}.npy` against a file name, returning the layer number.
 fn match_pattern(pattern: &str, name: &str) -> Option<usize> {
-    let (pre, post) = pattern.split_once("{}").or_else(|| pattern.split_once('*'))?;
+    let (pre, post) = pattern
+        .split_once("{}")
+        .or_else(|| pattern.split_once('*'))?;
     let mid = name.strip_prefix(pre)?.strip_suffix(post)?;
     if mid.is_empty() || !mid.bytes().all(|b| b.is_ascii_digit()) || mid.len() > 9 {
         return None;
@@ -216,15 +226,26 @@ impl Capture {
         }
         let toml_path = dir.join("capture.toml");
         let config: CaptureConfig = if toml_path.exists() {
-            let text = std::fs::read_to_string(&toml_path).map_err(|e| CaptureError::io(&toml_path, e))?;
+            let text =
+                std::fs::read_to_string(&toml_path).map_err(|e| CaptureError::io(&toml_path, e))?;
             toml::from_str(&text).map_err(|e| {
-                CaptureError::invalid(&toml_path, "capture.toml", "valid TOML with known keys", e.message().to_string())
+                CaptureError::invalid(
+                    &toml_path,
+                    "capture.toml",
+                    "valid TOML with known keys",
+                    e.message().to_string(),
+                )
             })?
         } else {
             CaptureConfig::default()
         };
         if !(config.hop_s.is_finite() && config.hop_s > 0.0) {
-            return Err(CaptureError::invalid(&toml_path, "hop_s", "a frame shift > 0 seconds", format!("{}", config.hop_s)));
+            return Err(CaptureError::invalid(
+                &toml_path,
+                "hop_s",
+                "a frame shift > 0 seconds",
+                format!("{}", config.hop_s),
+            ));
         }
         let name = config.name.clone().unwrap_or_else(|| {
             dir.canonicalize()
@@ -238,15 +259,31 @@ impl Capture {
         if label_opts.columns.is_empty() {
             label_opts.columns = config.label_columns.clone();
         }
-        let cols = labels::Columns { utterance: &config.utterance_column, speaker: &config.speaker_column };
+        let cols = labels::Columns {
+            utterance: &config.utterance_column,
+            speaker: &config.speaker_column,
+        };
         let frames_tsv = dir.join("frames.tsv");
         let (utt_tsv, seg_tsv) = (dir.join("utterances.tsv"), dir.join("segments.tsv"));
         let (mut frames, label_source) = if frames_tsv.exists() {
-            (labels::read_frames_tsv(&frames_tsv, &cols, &label_opts)?, "frames.tsv".to_string())
-        } else if utt_tsv.exists() && seg_tsv.exists() {
-            let timing = Timing { hop_s: config.hop_s, win_s: config.win_s.unwrap_or(config.hop_s) };
             (
-                labels::read_segments(&utt_tsv, &seg_tsv, &cols, &config.segment_label, timing, &label_opts)?,
+                labels::read_frames_tsv(&frames_tsv, &cols, &label_opts)?,
+                "frames.tsv".to_string(),
+            )
+        } else if utt_tsv.exists() && seg_tsv.exists() {
+            let timing = Timing {
+                hop_s: config.hop_s,
+                win_s: config.win_s.unwrap_or(config.hop_s),
+            };
+            (
+                labels::read_segments(
+                    &utt_tsv,
+                    &seg_tsv,
+                    &cols,
+                    &config.segment_label,
+                    timing,
+                    &label_opts,
+                )?,
                 "utterances.tsv + segments.tsv".to_string(),
             )
         } else {
@@ -280,7 +317,12 @@ impl Capture {
                 ));
             }
             if l.dim() == 0 {
-                return Err(CaptureError::invalid(l.path(), "dim", "at least one feature", "0"));
+                return Err(CaptureError::invalid(
+                    l.path(),
+                    "dim",
+                    "at least one feature",
+                    "0",
+                ));
             }
         }
         let mut cap = Capture {
@@ -298,7 +340,12 @@ impl Capture {
                 frames = std::mem::replace(&mut cap.frames, empty_table());
                 frames.mask_frames(&bad);
                 cap.frames = frames;
-                cap.nonfinite_frames = bad.iter().enumerate().filter(|(_, &b)| b).map(|(i, _)| i).collect();
+                cap.nonfinite_frames = bad
+                    .iter()
+                    .enumerate()
+                    .filter(|(_, &b)| b)
+                    .map(|(i, _)| i)
+                    .collect();
             }
         }
         Ok(cap)
@@ -329,7 +376,12 @@ impl Capture {
     pub fn read_layer_rows(&self, i: usize, rows: &[usize]) -> Result<Array2<f32>, CaptureError> {
         let l = &self.layers[i];
         if let Some(&r) = rows.iter().find(|&&r| r >= l.frames()) {
-            return Err(CaptureError::invalid(l.path(), "frame index", format!("< {}", l.frames()), format!("{r}")));
+            return Err(CaptureError::invalid(
+                l.path(),
+                "frame index",
+                format!("< {}", l.frames()),
+                format!("{r}"),
+            ));
         }
         let mut m = l.file.read_rows(l.slot, rows);
         l.file.release();
@@ -337,7 +389,12 @@ impl Capture {
         Ok(m)
     }
 
-    fn check_finite(&self, i: usize, m: &mut Array2<f32>, rows: Option<&[usize]>) -> Result<(), CaptureError> {
+    fn check_finite(
+        &self,
+        i: usize,
+        m: &mut Array2<f32>,
+        rows: Option<&[usize]>,
+    ) -> Result<(), CaptureError> {
         let l = &self.layers[i];
         for (r, mut row) in m.outer_iter_mut().enumerate() {
             if let Some(c) = row.iter().position(|v| !v.is_finite()) {
@@ -404,7 +461,11 @@ impl Capture {
                             "--layers",
                             format!(
                                 "layer numbers present in the capture ({})",
-                                self.layers.iter().map(|l| l.id.to_string()).collect::<Vec<_>>().join(",")
+                                self.layers
+                                    .iter()
+                                    .map(|l| l.id.to_string())
+                                    .collect::<Vec<_>>()
+                                    .join(",")
                             ),
                             format!("{id}"),
                         )
@@ -459,16 +520,34 @@ fn find_layers(dir: &Path, config: &CaptureConfig) -> Result<Vec<LayerSource>, C
         }
         let (l, _, _) = f.layer_shape();
         if l == 0 {
-            return Err(CaptureError::invalid(&p, "shape", "at least one layer", "0 layers"));
+            return Err(CaptureError::invalid(
+                &p,
+                "shape",
+                "at least one layer",
+                "0 layers",
+            ));
         }
-        return Ok((0..l).map(|i| LayerSource { id: i, file: f.clone(), slot: i }).collect());
+        return Ok((0..l)
+            .map(|i| LayerSource {
+                id: i,
+                file: f.clone(),
+                slot: i,
+            })
+            .collect());
     }
     if entries.is_empty() {
         return Err(CaptureError::invalid(
             dir,
             "layer files",
-            format!("files named like '{}' (or one 3-D .npy stack)", config.layer_pattern),
-            if npys.is_empty() { "no .npy files".to_string() } else { format!("{} other .npy files", npys.len()) },
+            format!(
+                "files named like '{}' (or one 3-D .npy stack)",
+                config.layer_pattern
+            ),
+            if npys.is_empty() {
+                "no .npy files".to_string()
+            } else {
+                format!("{} other .npy files", npys.len())
+            },
         ));
     }
     entries.sort();
@@ -493,7 +572,11 @@ fn find_layers(dir: &Path, config: &CaptureConfig) -> Result<Vec<LayerSource>, C
                 format!("{}-D {:?}", f.header().shape.len(), f.header().shape),
             ));
         }
-        out.push(LayerSource { id, file: std::sync::Arc::new(f), slot: 0 });
+        out.push(LayerSource {
+            id,
+            file: std::sync::Arc::new(f),
+            slot: 0,
+        });
     }
     Ok(out)
 }
@@ -507,7 +590,11 @@ impl std::str::FromStr for LayerSelection {
     fn from_str(s: &str) -> Result<Self, String> {
         let mut out = Vec::new();
         for part in s.split(',').map(str::trim).filter(|p| !p.is_empty()) {
-            let num = |x: &str| x.trim().parse::<usize>().map_err(|_| format!("'{x}' is not a layer number"));
+            let num = |x: &str| {
+                x.trim()
+                    .parse::<usize>()
+                    .map_err(|_| format!("'{x}' is not a layer number"))
+            };
             if let Some((a, b)) = part.split_once('-') {
                 let (a, b) = (num(a)?, num(b)?);
                 if b < a {

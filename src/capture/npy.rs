@@ -69,7 +69,12 @@ impl NpyHeader {
     }
 }
 
-fn bad(path: &Path, field: &str, expected: impl Into<String>, found: impl Into<String>) -> CaptureError {
+fn bad(
+    path: &Path,
+    field: &str,
+    expected: impl Into<String>,
+    found: impl Into<String>,
+) -> CaptureError {
     CaptureError::Npy {
         path: path.to_path_buf(),
         field: field.to_string(),
@@ -104,7 +109,12 @@ pub fn parse_header(path: &Path, bytes: &[u8], file_len: u64) -> Result<NpyHeade
         1 => (u16::from_le_bytes([bytes[8], bytes[9]]) as usize, 10usize),
         2 | 3 => {
             if bytes.len() < 12 {
-                return Err(bad(path, "header length", "12 bytes of preamble", "a truncated file"));
+                return Err(bad(
+                    path,
+                    "header length",
+                    "12 bytes of preamble",
+                    "a truncated file",
+                ));
             }
             (
                 u32::from_le_bytes([bytes[8], bytes[9], bytes[10], bytes[11]]) as usize,
@@ -153,9 +163,14 @@ pub fn parse_header(path: &Path, bytes: &[u8], file_len: u64) -> Result<NpyHeade
             format!("'{descr}'{}", describe_descr(&descr)),
         )
     })?;
-    let fortran_order = dict
-        .fortran
-        .ok_or_else(|| bad(path, "fortran_order", "True or False", "no 'fortran_order' key"))?;
+    let fortran_order = dict.fortran.ok_or_else(|| {
+        bad(
+            path,
+            "fortran_order",
+            "True or False",
+            "no 'fortran_order' key",
+        )
+    })?;
     let shape = dict
         .shape
         .ok_or_else(|| bad(path, "shape", "a tuple of integers", "no 'shape' key"))?;
@@ -238,7 +253,10 @@ struct Dict {
 
 /// A small parser for the literal dict numpy writes; rejects anything else.
 fn parse_dict(text: &str) -> Option<Dict> {
-    let mut p = Parser { s: text.as_bytes(), i: 0 };
+    let mut p = Parser {
+        s: text.as_bytes(),
+        i: 0,
+    };
     let mut d = Dict::default();
     p.ws();
     p.eat(b'{')?;
@@ -311,7 +329,9 @@ impl Parser<'_> {
                 return None;
             }
         }
-        let out = std::str::from_utf8(&self.s[start..self.i]).ok()?.to_string();
+        let out = std::str::from_utf8(&self.s[start..self.i])
+            .ok()?
+            .to_string();
         self.i += 1;
         Some(out)
     }
@@ -425,16 +445,28 @@ impl NpyFile {
         match h.dtype {
             Dtype::F16 => {
                 let b = [data[2 * k], data[2 * k + 1]];
-                let bits = if h.big_endian { u16::from_be_bytes(b) } else { u16::from_le_bytes(b) };
+                let bits = if h.big_endian {
+                    u16::from_be_bytes(b)
+                } else {
+                    u16::from_le_bytes(b)
+                };
                 f16::from_bits(bits).to_f32()
             }
             Dtype::F32 => {
                 let b: [u8; 4] = data[4 * k..4 * k + 4].try_into().expect("4 bytes");
-                if h.big_endian { f32::from_be_bytes(b) } else { f32::from_le_bytes(b) }
+                if h.big_endian {
+                    f32::from_be_bytes(b)
+                } else {
+                    f32::from_le_bytes(b)
+                }
             }
             Dtype::F64 => {
                 let b: [u8; 8] = data[8 * k..8 * k + 8].try_into().expect("8 bytes");
-                (if h.big_endian { f64::from_be_bytes(b) } else { f64::from_le_bytes(b) }) as f32
+                (if h.big_endian {
+                    f64::from_be_bytes(b)
+                } else {
+                    f64::from_le_bytes(b)
+                }) as f32
             }
         }
     }
@@ -501,8 +533,14 @@ impl NpyFile {
                             *o = self.get(data, self.index(layer, r, c));
                         }
                     } else {
-                        self.decode_run(data, self.index(layer, r, 0), slice);
+                        let start = self.index(layer, r, 0);
+                        self.decode_run(data, start, slice);
+                        // Sparse row reads must not leave the whole file resident.
+                        self.release_elems(start, start + slice.len());
                     }
+                }
+                if fortran {
+                    self.release();
                 }
             });
         out
@@ -519,7 +557,11 @@ impl NpyFile {
                 slice
                     .par_chunks_mut(1 << 16)
                     .enumerate()
-                    .for_each(|(ci, chunk)| self.decode_run(data, base + ci * (1 << 16), chunk));
+                    .for_each(|(ci, chunk)| {
+                        let start = base + ci * (1 << 16);
+                        self.decode_run(data, start, chunk);
+                        self.release_elems(start, start + chunk.len());
+                    });
             }
             out
         } else {
@@ -527,7 +569,11 @@ impl NpyFile {
             let mut out = Array2::<f32>::zeros((f, d));
             let cols: Vec<Vec<f32>> = (0..d)
                 .into_par_iter()
-                .map(|c| (0..f).map(|r| self.get(data, layer + l * (r + f * c))).collect())
+                .map(|c| {
+                    (0..f)
+                        .map(|r| self.get(data, layer + l * (r + f * c)))
+                        .collect()
+                })
                 .collect();
             for (c, col) in cols.into_iter().enumerate() {
                 for (r, v) in col.into_iter().enumerate() {
@@ -535,6 +581,22 @@ impl NpyFile {
                 }
             }
             out
+        }
+    }
+
+    /// Drop the pages holding data elements `lo..hi` (storage order) from the resident set.
+    fn release_elems(&self, lo: usize, hi: usize) {
+        if let Some(m) = &self.map {
+            let sz = self.header.dtype.size();
+            let start = self.header.data_offset + lo * sz;
+            let len = (hi - lo) * sz;
+            if len > 0 && start + len <= m.len() {
+                // SAFETY: as in `release`: read-only file mapping, refilled from the file.
+                unsafe {
+                    let _ =
+                        m.unchecked_advise_range(memmap2::UncheckedAdvice::DontNeed, start, len);
+                }
+            }
         }
     }
 
@@ -582,7 +644,10 @@ mod tests {
 
     #[test]
     fn parses_numpy_style_header() {
-        let b = header_bytes("{'descr': '<f4', 'fortran_order': False, 'shape': (3, 2), }", 24);
+        let b = header_bytes(
+            "{'descr': '<f4', 'fortran_order': False, 'shape': (3, 2), }",
+            24,
+        );
         let h = parse_header(Path::new("x.npy"), &b, b.len() as u64).unwrap();
         assert_eq!(h.dtype, Dtype::F32);
         assert_eq!(h.shape, vec![3, 2]);

@@ -54,13 +54,17 @@ pub fn save<F: Figure>(fig: &F, stem: &Path) -> Result<(), PlotError> {
     let (w, h) = fig.size();
     let png_path = stem.with_extension("png");
     let svg_path = stem.with_extension("svg");
-    let err = |p: &Path, m: String| PlotError { path: p.to_path_buf(), message: m };
+    let err = |p: &Path, m: String| PlotError {
+        path: p.to_path_buf(),
+        message: m,
+    };
     // PNG: render into a pixel buffer, encode, write atomically.
     let mut buf = vec![0u8; (w as usize) * (h as usize) * 3];
     {
         let backend = BitMapBackend::with_buffer(&mut buf, (w, h));
         let area = backend.into_drawing_area();
-        area.fill(&WHITE).map_err(|e| err(&png_path, e.to_string()))?;
+        area.fill(&WHITE)
+            .map_err(|e| err(&png_path, e.to_string()))?;
         fig.draw(&area).map_err(|m| err(&png_path, m))?;
         area.present().map_err(|e| err(&png_path, e.to_string()))?;
     }
@@ -71,11 +75,13 @@ pub fn save<F: Figure>(fig: &F, stem: &Path) -> Result<(), PlotError> {
     {
         let backend = SVGBackend::with_string(&mut svg, (w, h));
         let area = backend.into_drawing_area();
-        area.fill(&WHITE).map_err(|e| err(&svg_path, e.to_string()))?;
+        area.fill(&WHITE)
+            .map_err(|e| err(&svg_path, e.to_string()))?;
         fig.draw(&area).map_err(|m| err(&svg_path, m))?;
         area.present().map_err(|e| err(&svg_path, e.to_string()))?;
     }
-    crate::output::write_atomic(&svg_path, svg.as_bytes()).map_err(|e| err(&svg_path, e.to_string()))
+    crate::output::write_atomic(&svg_path, svg.as_bytes())
+        .map_err(|e| err(&svg_path, e.to_string()))
 }
 
 /// Render `fig` to an SVG string (for inlining in the HTML report).

@@ -53,7 +53,11 @@ pub const OTHER: Rgb = RGBColor(170, 170, 170);
 /// Sequential ramp for heatmaps, `t` in [0, 1]: pale warm white to deep blue-violet,
 /// monotone in lightness.
 pub fn ramp(t: f64) -> Rgb {
-    let t = if t.is_finite() { t.clamp(0.0, 1.0) } else { 0.0 };
+    let t = if t.is_finite() {
+        t.clamp(0.0, 1.0)
+    } else {
+        0.0
+    };
     let l = 0.97 - 0.62 * t;
     let c = 0.02 + 0.13 * t.powf(0.8);
     let h = 85.0 + 190.0 * t;
