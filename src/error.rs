@@ -5,6 +5,7 @@ use crate::capture::CaptureError;
 use crate::compare::CompareError;
 use crate::output::OutputError;
 use crate::plot::PlotError;
+use crate::probe::ProbeError;
 
 /// Any error the library returns to the CLI.
 #[derive(Debug, thiserror::Error)]
@@ -21,6 +22,9 @@ pub enum Error {
     /// Drawing failed.
     #[error(transparent)]
     Plot(#[from] PlotError),
+    /// The probe stage failed.
+    #[error(transparent)]
+    Probe(#[from] ProbeError),
     /// Bad input found by an analysis (options that do not fit the data).
     #[error("{0}")]
     Input(String),
@@ -39,6 +43,8 @@ impl Error {
             Error::Capture(_) | Error::Input(_) => 2,
             Error::Output(OutputError::Refused { .. }) => 2,
             Error::Compare(_) => 2,
+            Error::Probe(ProbeError::Input(_)) => 2,
+            Error::Probe(ProbeError::Internal(_)) => 1,
             Error::Output(_) | Error::Plot(_) | Error::NotYet(_) | Error::Internal(_) => 1,
         }
     }

@@ -11,6 +11,7 @@ pub mod inspect;
 pub mod linalg;
 pub mod output;
 pub mod plot;
+pub mod probe;
 pub mod progress;
 pub mod select;
 pub mod stats;

@@ -45,6 +45,46 @@ struct CaptureArgs {
 }
 
 #[derive(Args, Debug, Clone)]
+struct ProbeArgs {
+    /// Label task to probe (repeatable; default: phone and speaker).
+    #[arg(long = "task", value_name = "COLUMN")]
+    tasks: Vec<String>,
+    /// Pooling of frames into items: frame, segment or utterance.
+    #[arg(long = "pool", default_value = "frame")]
+    pool: voxstrata::select::pool::Pooling,
+    /// Frames stacked either side of each frame, within its utterance.
+    #[arg(long, default_value_t = 0)]
+    context: usize,
+    /// Split: auto, speaker, utterance or frame.
+    #[arg(long, default_value = "auto")]
+    split: voxstrata::select::split::SplitKind,
+    /// Grouped cross-validation folds (1: one train/test split).
+    #[arg(long, default_value_t = 1)]
+    folds: usize,
+    /// Share of groups held out for testing (one split).
+    #[arg(long = "test-fraction", default_value_t = 0.25)]
+    test_fraction: f64,
+    /// Largest number of training items per fit (stratified subsample; 0: all).
+    #[arg(long = "max-train-frames", default_value_t = 20_000)]
+    max_train_frames: usize,
+    /// Bootstrap resamples for the 95% interval.
+    #[arg(long, default_value_t = 1000)]
+    bootstrap: usize,
+    /// Skip the control task.
+    #[arg(long = "no-control")]
+    no_control: bool,
+    /// Stop instead of dropping classes or speakers the split cannot use.
+    #[arg(long)]
+    strict: bool,
+    /// Output folder.
+    #[arg(long, default_value = "voxstrata-probe")]
+    out: PathBuf,
+    /// Write into an output folder that already holds files.
+    #[arg(long)]
+    force: bool,
+}
+
+#[derive(Args, Debug, Clone)]
 struct CompareArgs {
     /// Output folder.
     #[arg(long, default_value = "voxstrata-compare")]
@@ -67,6 +107,15 @@ struct CompareArgs {
     /// Frames per minibatch for --hsic minibatch.
     #[arg(long = "batch-size", default_value_t = 512)]
     batch_size: usize,
+    /// Label task for probe deltas (repeatable; default: phone and speaker).
+    #[arg(long = "task", value_name = "COLUMN")]
+    tasks: Vec<String>,
+    /// Skip the probe deltas (CKA only).
+    #[arg(long = "no-probe")]
+    no_probe: bool,
+    /// Bootstrap resamples for the probe-delta intervals.
+    #[arg(long, default_value_t = 1000)]
+    bootstrap: usize,
 }
 
 #[derive(clap::ValueEnum, Debug, Clone, Copy)]
@@ -105,6 +154,8 @@ enum Command {
         capture: PathBuf,
         #[command(flatten)]
         cap: CaptureArgs,
+        #[command(flatten)]
+        probe: ProbeArgs,
     },
     /// 2-D maps (t-SNE or PCA) and cluster purity per layer.
     Map {
@@ -179,7 +230,39 @@ fn run(cli: Cli) -> Result<(), Error> {
             }
             Ok(())
         }
-        Command::Probe { .. } => Err(Error::NotYet("probe")),
+        Command::Probe {
+            capture,
+            cap,
+            probe,
+        } => {
+            let opts = voxstrata::probe::ProbeOptions {
+                tasks: probe.tasks,
+                pooling: probe.pool,
+                context: probe.context,
+                split: probe.split,
+                test_fraction: probe.test_fraction,
+                folds: probe.folds,
+                max_train_frames: probe.max_train_frames,
+                bootstrap: probe.bootstrap,
+                control: !probe.no_control,
+                strict: probe.strict,
+                ..Default::default()
+            };
+            // Refuse an unusable output folder before any work (nothing is created here).
+            if probe.out.exists() {
+                voxstrata::output::prepare_out_dir(&probe.out, probe.force)?;
+            }
+            let c = Capture::open(&capture, &open_options(&cap)?)?;
+            let report = voxstrata::probe::run(&c, &opts, &common, &progress)?;
+            for n in &report.notes {
+                eprintln!("voxstrata: {n}");
+            }
+            voxstrata::output::prepare_out_dir(&probe.out, probe.force)?;
+            voxstrata::probe::write_outputs(&report, &probe.out)?;
+            print!("{}", voxstrata::probe::summary_text(&report));
+            println!("  outputs in {}", probe.out.display());
+            Ok(())
+        }
         Command::Map { .. } => Err(Error::NotYet("map")),
         Command::Compare {
             capture_a,
@@ -188,9 +271,6 @@ fn run(cli: Cli) -> Result<(), Error> {
             args,
         } => {
             use voxstrata::compare::{self, CompareOptions, Estimator, Kernel, MatchBy};
-            let oo = open_options(&cap)?;
-            let a = Capture::open(&capture_a, &oo)?;
-            let b = Capture::open(&capture_b, &oo)?;
             let opts = CompareOptions {
                 match_by: match args.match_by {
                     MatchByArg::Row => MatchBy::Row,
@@ -206,10 +286,20 @@ fn run(cli: Cli) -> Result<(), Error> {
                     HsicArg::Minibatch => Estimator::Minibatch,
                 },
                 batch_size: args.batch_size,
+                probe: !args.no_probe,
+                tasks: args.tasks,
+                bootstrap: args.bootstrap,
                 ..Default::default()
             };
-            voxstrata::output::prepare_out_dir(&args.out, args.force)?;
+            // Refuse an unusable output folder before any work (nothing is created here).
+            if args.out.exists() {
+                voxstrata::output::prepare_out_dir(&args.out, args.force)?;
+            }
+            let oo = open_options(&cap)?;
+            let a = Capture::open(&capture_a, &oo)?;
+            let b = Capture::open(&capture_b, &oo)?;
             let report = compare::run(&a, &b, &opts, &common, &progress)?;
+            voxstrata::output::prepare_out_dir(&args.out, args.force)?;
             compare::write_outputs(&report, &args.out)?;
             print!("{}", compare::summary_text(&report));
             Ok(())

@@ -317,3 +317,45 @@ fn demo_final_against_early_changes_upper_layers_most() {
         matching
     );
 }
+
+#[test]
+fn probe_deltas_find_the_checkpoint_that_encodes_phones() {
+    let t = tempfile::tempdir().unwrap();
+    let fr = frames();
+    let ls = layers(fr.len());
+    // B's layer 1 carries the phone identity (one-hot, scaled) on top of A's noise.
+    let phones = ["a", "i", "u", "s", "t"];
+    let mut ls_b = ls.clone();
+    for (r, f) in fr.iter().enumerate() {
+        let k = phones.iter().position(|p| *p == f.phone).unwrap();
+        ls_b[1][[r, k]] += 4.0;
+    }
+    let (a, b) = (t.path().join("a"), t.path().join("b"));
+    write_capture(&a, &fr, &ls);
+    write_capture(&b, &fr, &ls_b);
+    let out = t.path().join("o");
+    let (code, stdout, stderr) = run(&[
+        "compare",
+        s(&a),
+        s(&b),
+        "--task",
+        "phone",
+        "--out",
+        s(&out),
+        "--quiet",
+    ]);
+    assert_eq!(code, 0, "{stderr}");
+    let j = read_json(&out.join("compare.json"));
+    let deltas = j["probe_delta"].as_array().unwrap();
+    assert_eq!(deltas.len(), 3, "{j}");
+    let d1 = deltas.iter().find(|d| d["layer"] == 1).unwrap();
+    assert!(d1["accuracy_b"].as_f64().unwrap() > 0.9, "{d1}");
+    assert!(d1["delta"].as_f64().unwrap() > 0.5, "{d1}");
+    assert!(d1["mcnemar_p"].as_f64().unwrap() < 1e-3, "{d1}");
+    // Layers 0 and 2 are identical in A and B: the same split and seed give the same answers.
+    let d0 = deltas.iter().find(|d| d["layer"] == 0).unwrap();
+    assert_eq!(d0["delta"].as_f64().unwrap(), 0.0);
+    assert_eq!(d0["mcnemar_p"].as_f64().unwrap(), 1.0);
+    assert!(stdout.contains("significant probe deltas"), "{stdout}");
+    assert!(out.join("compare_probe.png").is_file());
+}

@@ -105,6 +105,14 @@ pub struct CompareOptions {
     pub batch_size: usize,
     /// Frames used by RBF CKA when `max_frames` is not given (n × n matrices).
     pub rbf_frames: usize,
+    /// Compute probe deltas.
+    pub probe: bool,
+    /// Label tasks for probe deltas (empty: `phone` if present, and `speaker`).
+    pub tasks: Vec<String>,
+    /// Share of groups (speakers; utterances for the speaker task) held out for testing.
+    pub test_fraction: f64,
+    /// Bootstrap resamples for the probe-delta intervals.
+    pub bootstrap: usize,
 }
 
 impl Default for CompareOptions {
@@ -116,6 +124,10 @@ impl Default for CompareOptions {
             estimator: Estimator::Full,
             batch_size: 512,
             rbf_frames: 2000,
+            probe: true,
+            tasks: Vec::new(),
+            test_fraction: 0.25,
+            bootstrap: 1000,
         }
     }
 }
@@ -459,8 +471,8 @@ pub fn run(
             b,
             &sel_a,
             &sel_b,
-            RowReader::new(a, rows_a),
-            RowReader::new(b, rows_b),
+            RowReader::new(a, rows_a.clone()),
+            RowReader::new(b, rows_b.clone()),
             symmetric,
             progress,
         )?,
@@ -495,10 +507,27 @@ pub fn run(
             pairing.paired, pairing.dropped_a, pairing.dropped_b
         ));
     }
-    notes.push(
-        "probe deltas are not computed in this version: the probe trainer is not built in yet"
-            .to_string(),
-    );
+    let probe_delta = if opts.probe {
+        let shared: Vec<(usize, usize)> = sel_a
+            .iter()
+            .filter_map(|&ia| {
+                b.layer_index(a.layers[ia].id)
+                    .filter(|ib| sel_b.contains(ib))
+                    .map(|ib| (ia, ib))
+            })
+            .collect();
+        // Probes use all paired frames or the --max-frames sample (not the RBF subsample).
+        let keep = sample_sorted(
+            pairing.paired,
+            opts.max_frames.unwrap_or(usize::MAX),
+            common.seed ^ 0xc0a1_0001,
+        );
+        let ra: Vec<usize> = keep.iter().map(|&k| pairing.rows_a[k]).collect();
+        let rb: Vec<usize> = keep.iter().map(|&k| pairing.rows_b[k]).collect();
+        probe_deltas(a, b, &shared, &ra, &rb, opts, common, progress, &mut notes)?
+    } else {
+        Vec::new()
+    };
     Ok(CompareReport {
         captures: vec![
             CaptureRef {
@@ -514,7 +543,7 @@ pub fn run(
         layers_b: ids_b,
         pairing,
         cka,
-        probe_delta: Vec::new(),
+        probe_delta,
         notes,
         options: opts.clone(),
     })
@@ -654,6 +683,249 @@ fn rbf_matrix(
             out[[i, j]] = k.iter().zip(l.iter()).map(|(x, &y)| x * y as f64).sum();
         }
         step.inc(1);
+    }
+    Ok(out)
+}
+
+/// One label task's items and split for probe deltas (rows index the paired frames in use).
+struct DeltaPlan {
+    name: String,
+    /// Class (0..n_classes) per row; `UNLABELLED` where the row has no label.
+    labels: Vec<u32>,
+    n_classes: usize,
+    /// Inner-split group and bootstrap cluster per row: the speaker, or the utterance for
+    /// the speaker task (whose speakers are on both sides of the split).
+    groups: Vec<u32>,
+    train: Vec<usize>,
+    test: Vec<usize>,
+}
+
+fn mix(seed: u64, k: u64) -> u64 {
+    // SplitMix64 finaliser: distinct, well-spread seeds per purpose.
+    let mut z = seed ^ k.wrapping_mul(0x9e37_79b9_7f4a_7c15);
+    z = (z ^ (z >> 30)).wrapping_mul(0xbf58_476d_1ce4_e5b9);
+    z = (z ^ (z >> 27)).wrapping_mul(0x94d0_49bb_1331_11eb);
+    z ^ (z >> 31)
+}
+
+/// Plan the delta tasks on the paired frames in use (`rows_a`: A's rows; labels agree with
+/// B's by construction of the pairing). Tasks that cannot be split are skipped with a note.
+fn plan_deltas(
+    a: &Capture,
+    b: &Capture,
+    rows_a: &[usize],
+    opts: &CompareOptions,
+    seed: u64,
+    notes: &mut Vec<String>,
+) -> Result<Vec<DeltaPlan>, CompareError> {
+    use crate::select::split::{make_split, SplitKind, SplitOptions};
+    let fa = &a.frames;
+    let names: Vec<String> = if opts.tasks.is_empty() {
+        let mut v = Vec::new();
+        if fa.task("phone").is_some() && b.frames.task("phone").is_some() {
+            v.push("phone".to_string());
+        }
+        v.push("speaker".to_string());
+        v
+    } else {
+        opts.tasks.clone()
+    };
+    for n in &names {
+        for c in [a, b] {
+            if c.frames.task(n).is_none() {
+                return Err(CompareError::Input(format!(
+                    "{}: --task {n}: not a label column; the capture has: {}",
+                    c.dir.display(),
+                    c.frames.task_names().join(", ")
+                )));
+            }
+        }
+    }
+    let spk = fa.frame_speaker();
+    let mut plans = Vec::new();
+    for (ti, name) in names.iter().enumerate() {
+        let Some(task) = fa.task(name) else { continue };
+        let speaker_task = name == "speaker";
+        // Classes present among the rows in use, renumbered 0..k.
+        let mut remap = vec![UNLABELLED; task.classes.len()];
+        let mut k = 0u32;
+        let mut labels = Vec::with_capacity(rows_a.len());
+        for &r in rows_a {
+            let c = task.codes[r];
+            if c == UNLABELLED {
+                labels.push(UNLABELLED);
+                continue;
+            }
+            if remap[c as usize] == UNLABELLED {
+                remap[c as usize] = k;
+                k += 1;
+            }
+            labels.push(remap[c as usize]);
+        }
+        let items: Vec<usize> = (0..rows_a.len())
+            .filter(|&i| labels[i] != UNLABELLED)
+            .collect();
+        if k < 2 || items.len() < 4 {
+            notes.push(format!(
+                "probe deltas for '{name}' skipped: fewer than 2 classes or 4 labelled frames"
+            ));
+            continue;
+        }
+        let utt: Vec<u32> = items.iter().map(|&i| fa.frame_utt[rows_a[i]]).collect();
+        let sp: Vec<u32> = items.iter().map(|&i| spk[rows_a[i]]).collect();
+        let sopts = SplitOptions {
+            test_fraction: opts.test_fraction,
+            folds: 1,
+        };
+        let split = match make_split(
+            SplitKind::Auto,
+            speaker_task,
+            &utt,
+            &sp,
+            &sopts,
+            mix(seed, 600 + ti as u64),
+        ) {
+            Ok(s) => s,
+            Err(e) => {
+                notes.push(format!("probe deltas for '{name}' skipped: {e}"));
+                continue;
+            }
+        };
+        let Some(fold) = split.folds.first() else {
+            continue;
+        };
+        if fold.train.is_empty() || fold.test.is_empty() {
+            notes.push(format!(
+                "probe deltas for '{name}' skipped: the split left one side empty"
+            ));
+            continue;
+        }
+        let mut test_clusters: Vec<u32> = fold
+            .test
+            .iter()
+            .map(|&j| if speaker_task { utt[j] } else { sp[j] })
+            .collect();
+        test_clusters.sort_unstable();
+        test_clusters.dedup();
+        if test_clusters.len() < 5 {
+            notes.push(format!(
+                "probe deltas for '{name}': only {} test {} — the bootstrap intervals resample so few clusters that they are unreliable",
+                test_clusters.len(),
+                if speaker_task { "utterances" } else { "speakers" }
+            ));
+        }
+        let mut groups = vec![0u32; rows_a.len()];
+        for (j, &i) in items.iter().enumerate() {
+            groups[i] = if speaker_task { utt[j] } else { sp[j] };
+        }
+        plans.push(DeltaPlan {
+            name: name.clone(),
+            labels,
+            n_classes: k as usize,
+            groups,
+            train: fold.train.iter().map(|&j| items[j]).collect(),
+            test: fold.test.iter().map(|&j| items[j]).collect(),
+        });
+    }
+    Ok(plans)
+}
+
+/// The shipped probe (softmax regression with its penalty search, from [`crate::probe`]).
+struct LinearProbe<'a>(&'a crate::probe::ProbeOptions);
+
+impl FitPredict for LinearProbe<'_> {
+    fn fit_predict(
+        &self,
+        x_train: &ndarray::ArrayView2<f32>,
+        y_train: &[u32],
+        n_classes: usize,
+        x_test: &ndarray::ArrayView2<f32>,
+        inner_groups: &[u32],
+        seed: u64,
+    ) -> Result<Vec<u32>, String> {
+        crate::probe::fit_predict(
+            x_train.view(),
+            y_train,
+            n_classes,
+            x_test.view(),
+            inner_groups,
+            self.0,
+            seed,
+        )
+        .map(|f| f.pred)
+        .map_err(|e| e.to_string())
+    }
+}
+
+/// Probe deltas for every shared layer (A index, B index) and planned task: one A and one B
+/// layer resident at a time.
+#[allow(clippy::too_many_arguments)]
+fn probe_deltas(
+    a: &Capture,
+    b: &Capture,
+    shared: &[(usize, usize)],
+    rows_a: &[usize],
+    rows_b: &[usize],
+    opts: &CompareOptions,
+    common: &CommonOptions,
+    progress: &Progress,
+    notes: &mut Vec<String>,
+) -> Result<Vec<ProbeDelta>, crate::Error> {
+    let plans = plan_deltas(a, b, rows_a, opts, common.seed, notes)?;
+    if shared.is_empty() || plans.is_empty() {
+        if shared.is_empty() {
+            notes.push("probe deltas skipped: no layer number is present in both captures".into());
+        }
+        return Ok(Vec::new());
+    }
+    let popts = crate::probe::ProbeOptions {
+        bootstrap: opts.bootstrap,
+        control: false,
+        ..Default::default()
+    };
+    let dopts = delta::DeltaOptions {
+        n_boot: opts.bootstrap,
+        level: 0.95,
+    };
+    let probe = LinearProbe(&popts);
+    let step = progress.step("probe deltas", (shared.len() * plans.len()) as u64);
+    let mut out = Vec::new();
+    for &(ia, ib) in shared {
+        let layer = a.layers[ia].id;
+        step.message(&format!("probe deltas, layer {layer}"));
+        let xa = a.read_layer_rows(ia, rows_a)?;
+        let xb = b.read_layer_rows(ib, rows_b)?;
+        for (ti, p) in plans.iter().enumerate() {
+            // Training rows capped as the probe stage caps them (seeded uniform subsample).
+            let cap = popts.max_train_frames;
+            let train: Vec<usize> = if cap > 0 && p.train.len() > cap {
+                sample_sorted(p.train.len(), cap, mix(common.seed, 700 + ti as u64))
+                    .into_iter()
+                    .map(|k| p.train[k])
+                    .collect()
+            } else {
+                p.train.clone()
+            };
+            let input = delta::DeltaInput {
+                layer,
+                task: &p.name,
+                labels: &p.labels,
+                n_classes: p.n_classes,
+                groups: &p.groups,
+                train: &train,
+                test: &p.test,
+            };
+            let seed = mix(common.seed, 800 + (layer as u64) * 1000 + ti as u64);
+            let d = delta::probe_delta(&xa.view(), &xb.view(), &input, &probe, &dopts, seed)
+                .map_err(|e| {
+                    crate::Error::Internal(format!(
+                        "probe delta, layer {layer}, task {}: {e}",
+                        p.name
+                    ))
+                })?;
+            out.push(d);
+            step.inc(1);
+        }
     }
     Ok(out)
 }

@@ -5,6 +5,7 @@
 
 pub mod compare;
 pub mod palette;
+pub mod probe;
 
 use std::path::{Path, PathBuf};
 use std::sync::Once;
