@@ -309,6 +309,9 @@ impl super::Figure for ChangeBars {
     }
 }
 
+/// Height of the legend strip above the probe panels.
+const LEGEND_STRIP: u32 = 34;
+
 /// Probe accuracy per layer for A and B with their bootstrap bands, one panel per task.
 pub struct ProbeCurves {
     /// Names of A and B.
@@ -348,23 +351,58 @@ impl ProbeCurves {
 impl super::Figure for ProbeCurves {
     fn size(&self) -> (u32, u32) {
         let k = self.tasks.len() as u32;
-        (560 * k.min(3), 400 * k.div_ceil(3))
+        (560 * k.min(3), 400 * k.div_ceil(3) + LEGEND_STRIP)
     }
 
     fn draw<DB: DrawingBackend>(&self, area: &DrawingArea<DB, Shift>) -> Result<(), String> {
         let k = self.tasks.len();
         let cols = k.min(3);
         let rows = k.div_ceil(3);
-        let panels = area.split_evenly((rows, cols));
         let colours = category_colours(2);
+        // One legend above all panels, where it can never cover a curve.
+        let (top, body) = area.split_vertically(LEGEND_STRIP);
+        let names = [&self.names.0, &self.names.1];
+        let mut x = 20i32;
+        for (s, name) in names.iter().enumerate() {
+            let c = colours[s];
+            top.draw(&Rectangle::new(
+                [(x, 12), (x + 26, 24)],
+                c.mix(0.22).filled(),
+            ))
+            .map_err(e2s)?;
+            top.draw(&PathElement::new(
+                vec![(x, 18), (x + 26, 18)],
+                c.stroke_width(3),
+            ))
+            .map_err(e2s)?;
+            let st = text(13.0).pos(plotters::style::text_anchor::Pos::new(
+                plotters::style::text_anchor::HPos::Left,
+                plotters::style::text_anchor::VPos::Center,
+            ));
+            top.draw(&Text::new(name.to_string(), (x + 34, 18), st))
+                .map_err(e2s)?;
+            x += 34 + 8 * name.chars().count() as i32 + 40;
+        }
+        let st =
+            text(12.0)
+                .color(&RGBColor(90, 90, 90))
+                .pos(plotters::style::text_anchor::Pos::new(
+                    plotters::style::text_anchor::HPos::Left,
+                    plotters::style::text_anchor::VPos::Center,
+                ));
+        top.draw(&Text::new(
+            "bands: 95% bootstrap over test speakers (utterances for the speaker task)",
+            (x, 18),
+            st,
+        ))
+        .map_err(e2s)?;
+        let panels = body.split_evenly((rows, cols));
         for ((task, ds), panel) in self.tasks.iter().zip(panels.iter()) {
             let lo = ds.iter().map(|d| d.layer).min().unwrap_or(0) as f64;
             let hi = ds.iter().map(|d| d.layer).max().unwrap_or(0) as f64;
-            let (lo, hi) = if hi > lo {
-                (lo, hi)
-            } else {
-                (lo - 0.5, hi + 0.5)
-            };
+            // A margin so end points are not clipped by the frame.
+            let pad = ((hi - lo) * 0.03).max(0.3);
+            let (lo, hi) = (lo - pad, hi + pad);
             let mut chart = ChartBuilder::on(panel)
                 .caption(format!("{task} probe accuracy"), text(16.0))
                 .margin(12)
@@ -421,14 +459,6 @@ impl super::Figure for ProbeCurves {
                     )
                     .map_err(e2s)?;
             }
-            chart
-                .configure_series_labels()
-                .position(SeriesLabelPosition::LowerRight)
-                .background_style(WHITE.mix(0.85))
-                .border_style(RGBColor(200, 200, 200))
-                .label_font(text(12.0))
-                .draw()
-                .map_err(e2s)?;
         }
         Ok(())
     }
@@ -492,7 +522,7 @@ mod tests {
             })
             .collect();
         let curves = ProbeCurves::from_deltas(("early".into(), "final".into()), &ds).unwrap();
-        assert_eq!(curves.size(), (1120, 400));
+        assert_eq!(curves.size(), (1120, 400 + LEGEND_STRIP));
         assert!(crate::plot::to_svg(&curves)
             .unwrap()
             .contains("speaker probe accuracy"));
