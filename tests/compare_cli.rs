@@ -358,4 +358,9 @@ fn probe_deltas_find_the_checkpoint_that_encodes_phones() {
     assert_eq!(d0["mcnemar_p"].as_f64().unwrap(), 1.0);
     assert!(stdout.contains("significant probe deltas"), "{stdout}");
     assert!(out.join("compare_probe.png").is_file());
+    let csv = std::fs::read_to_string(out.join("compare_probe_delta.csv")).unwrap();
+    assert!(
+        csv.starts_with("layer,task,n_train,n_test,accuracy_a"),
+        "{csv}"
+    );
 }

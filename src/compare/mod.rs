@@ -4,9 +4,14 @@
 //! McNemar's test and a paired speaker bootstrap on the difference).
 //!
 //! Frames are paired row by row (the label tables must agree), or by (utterance, frame index
-//! within the utterance) with [`MatchBy::Utterance`]. Linear CKA streams layers: one A layer
-//! and one B layer are resident at a time, and everything is computed in feature space
-//! (p × q products), never with n × n Gram matrices.
+//! within the utterance) with [`MatchBy::Utterance`]. Probe deltas use frame-level items, the
+//! default split of the probe stage (speaker-disjoint; utterance-disjoint with every speaker on
+//! both sides for the speaker task), the same split and seed for A and B, McNemar's test
+//! (exact binomial below 25 discordant pairs, else chi-square without continuity correction)
+//! and a paired cluster bootstrap over test speakers (test utterances for the speaker task).
+//!
+//! Linear CKA streams layers: one A layer and one B layer are resident at a time, and
+//! everything is computed in feature space (p × q products), never with n × n Gram matrices.
 
 pub mod cka;
 pub mod delta;
@@ -190,7 +195,7 @@ pub struct CompareReport {
     pub pairing: Pairing,
     /// One record per (A layer, B layer), A-major.
     pub cka: Vec<CkaRecord>,
-    /// Probe deltas per shared layer number and task (empty until a probe is wired in).
+    /// Probe deltas per shared layer number and task (empty with `probe: false`).
     pub probe_delta: Vec<ProbeDelta>,
     /// Remarks for the reader (what was skipped and why).
     pub notes: Vec<String>,
@@ -341,6 +346,19 @@ pub fn pair_frames(a: &Capture, b: &Capture, how: MatchBy) -> Result<Pairing, Co
             (ra, rb)
         }
     };
+    // Frames zeroed for NaN/Inf (opened with allow_nonfinite) carry no activations to compare.
+    let (rows_a, rows_b) = if a.nonfinite_frames.is_empty() && b.nonfinite_frames.is_empty() {
+        (rows_a, rows_b)
+    } else {
+        rows_a
+            .into_iter()
+            .zip(rows_b)
+            .filter(|(x, y)| {
+                a.nonfinite_frames.binary_search(x).is_err()
+                    && b.nonfinite_frames.binary_search(y).is_err()
+            })
+            .unzip()
+    };
     let paired = rows_a.len();
     if paired == 0 {
         return Err(CompareError::Input(format!(
@@ -403,7 +421,8 @@ fn same_capture(a: &Capture, b: &Capture) -> bool {
 }
 
 /// Compare captures `a` and `b`: pair frames, compute CKA between every selected layer of A
-/// and every selected layer of B. Probe deltas are left empty here (see [`delta`]).
+/// and every selected layer of B, then (unless `opts.probe` is off) probe deltas on every
+/// layer number present in both, with the probe trainer of [`crate::probe`] (see [`delta`]).
 pub fn run(
     a: &Capture,
     b: &Capture,
@@ -1024,6 +1043,17 @@ pub fn write_outputs(r: &CompareReport, dir: &Path) -> Result<(), crate::Error> 
     let bars = crate::plot::compare::ChangeBars::from_report(r);
     let curves = crate::plot::compare::ProbeCurves::from_report(r);
     output::write_records(dir, "compare", &r.captures, options, &r.cka, extra)?;
+    if !r.probe_delta.is_empty() {
+        // The deltas also as their own table, for spreadsheets.
+        let path = dir.join("compare_probe_delta.csv");
+        let csv = output::records_to_csv(&r.probe_delta).map_err(|message| {
+            output::OutputError::Encode {
+                path: path.clone(),
+                message,
+            }
+        })?;
+        output::write_atomic(&path, &csv)?;
+    }
     crate::plot::save(&heat, &dir.join("compare_cka"))?;
     if let Some(b) = bars {
         crate::plot::save(&b, &dir.join("compare_change"))?;
