@@ -64,11 +64,26 @@ fn main() {
     let open = OpenOptions::default();
     let a = Capture::open(&tmp.join("a"), &open).unwrap();
     let b = Capture::open(&tmp.join("b"), &open).unwrap();
+    // Reading and centring one layer, for comparison with one product.
+    let t = Instant::now();
+    let mut x = a.read_layer(0).unwrap();
+    let t_read = t.elapsed().as_secs_f64();
+    voxstrata::compare::cka::centre(&mut x);
+    println!(
+        "read one layer: {:.3} s, centre it: {:.3} s",
+        t_read,
+        t.elapsed().as_secs_f64() - t_read
+    );
+    drop(x);
     let t = Instant::now();
     let r = compare::run(
         &a,
         &b,
-        &CompareOptions::default(),
+        // CKA only: the probe deltas are timed with the probe stage.
+        &CompareOptions {
+            probe: false,
+            ..Default::default()
+        },
         &CommonOptions::default(),
         &Progress::hidden(),
     )
