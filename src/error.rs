@@ -6,6 +6,7 @@ use crate::compare::CompareError;
 use crate::output::OutputError;
 use crate::plot::PlotError;
 use crate::probe::ProbeError;
+use crate::report::ReportError;
 
 /// Any error the library returns to the CLI.
 #[derive(Debug, thiserror::Error)]
@@ -22,6 +23,9 @@ pub enum Error {
     /// Drawing failed.
     #[error(transparent)]
     Plot(#[from] PlotError),
+    /// The report stage failed.
+    #[error(transparent)]
+    Report(#[from] ReportError),
     /// The probe stage failed.
     #[error(transparent)]
     Probe(#[from] ProbeError),
@@ -43,6 +47,8 @@ impl Error {
             Error::Capture(_) | Error::Input(_) => 2,
             Error::Output(OutputError::Refused { .. }) => 2,
             Error::Compare(_) => 2,
+            Error::Report(e) if e.is_input() => 2,
+            Error::Report(_) => 1,
             Error::Probe(ProbeError::Input(_)) => 2,
             Error::Probe(ProbeError::Internal(_)) => 1,
             Error::Output(_) | Error::Plot(_) | Error::NotYet(_) | Error::Internal(_) => 1,

@@ -13,6 +13,7 @@ pub mod output;
 pub mod plot;
 pub mod probe;
 pub mod progress;
+pub mod report;
 pub mod select;
 pub mod stats;
 
