@@ -855,13 +855,23 @@ pub fn run(
                     );
                     let ctr: Vec<u32> = f.train.iter().map(|&i| ctl[i]).collect();
                     let cte: Vec<u32> = f.test.iter().map(|&i| ctl[i]).collect();
+                    // The control uses the same probe, penalty included (Hewitt & Liang 2019
+                    // compare one probe configuration on both tasks), so no penalty search here.
+                    let copts = ProbeOptions {
+                        alphas: if fit.alpha.is_finite() {
+                            vec![fit.alpha]
+                        } else {
+                            opts.alphas.clone()
+                        },
+                        ..opts.clone()
+                    };
                     let cfit = fit_predict(
                         xtr.view(),
                         &ctr,
                         k,
                         xte.view(),
                         &groups,
-                        opts,
+                        &copts,
                         fseed ^ 0x5a5a,
                     )?;
                     ctrls.push(metrics::accuracy(&cte, &cfit.pred));
