@@ -429,11 +429,26 @@ fn run(cli: Cli) -> Result<(), Error> {
 
 fn main() -> ExitCode {
     let cli = Cli::parse();
-    match run(cli) {
+    let code = match run(cli) {
         Ok(()) => ExitCode::SUCCESS,
         Err(e) => {
             eprintln!("voxstrata: {e}");
             ExitCode::from(e.exit_code() as u8)
+        }
+    };
+    report_peak_rss();
+    code
+}
+
+/// With `VOXSTRATA_REPORT_PEAK_RSS=1`, print the process's peak resident set (`VmHWM` from
+/// /proc/self/status, Linux only) on stderr, so tests can check memory use of a whole run.
+fn report_peak_rss() {
+    if std::env::var_os("VOXSTRATA_REPORT_PEAK_RSS").is_none() {
+        return;
+    }
+    if let Ok(status) = std::fs::read_to_string("/proc/self/status") {
+        if let Some(line) = status.lines().find(|l| l.starts_with("VmHWM:")) {
+            eprintln!("voxstrata: peak RSS {}", line["VmHWM:".len()..].trim());
         }
     }
 }

@@ -192,7 +192,24 @@ pub fn prepare_out_dir(dir: &Path, force: bool) -> Result<(), OutputError> {
             });
         }
     }
-    std::fs::create_dir_all(dir).map_err(|e| io(dir, e))
+    std::fs::create_dir_all(dir).map_err(|e| io(dir, e))?;
+    remove_stale_partials(dir);
+    Ok(())
+}
+
+/// Remove temporary files (`.NAME.partial-PID`) that a killed earlier run left behind; a
+/// SIGKILL between create and rename cannot be cleaned up by the run itself.
+fn remove_stale_partials(dir: &Path) {
+    let Ok(rd) = std::fs::read_dir(dir) else {
+        return;
+    };
+    for e in rd.flatten() {
+        let name = e.file_name();
+        let name = name.to_string_lossy();
+        if name.starts_with('.') && name.contains(".partial-") && e.path().is_file() {
+            let _ = std::fs::remove_file(e.path());
+        }
+    }
 }
 
 #[cfg(test)]

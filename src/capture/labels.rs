@@ -437,6 +437,29 @@ pub fn read_segments(
     timing: Timing,
     opts: &LabelOptions,
 ) -> Result<FrameTable, CaptureError> {
+    read_segments_within(
+        utt_path,
+        seg_path,
+        cols,
+        label_name,
+        timing,
+        opts,
+        usize::MAX,
+    )
+}
+
+/// [`read_segments`] that refuses, before allocating anything per frame, an `utterances.tsv`
+/// whose frame counts add up to more than `max_frames` (the frames the layer files hold), so
+/// a lying `frames` column cannot make the reader allocate or loop for billions of frames.
+pub fn read_segments_within(
+    utt_path: &Path,
+    seg_path: &Path,
+    cols: &Columns,
+    label_name: &str,
+    timing: Timing,
+    opts: &LabelOptions,
+    max_frames: usize,
+) -> Result<FrameTable, CaptureError> {
     let (uh, urows) = read_tsv(utt_path)?;
     let ucol = column(utt_path, &uh, cols.utterance)?;
     let scol = column(utt_path, &uh, cols.speaker)?;
@@ -451,6 +474,7 @@ pub fn read_segments(
         });
     }
     let mut b = Builder::new();
+    let mut listed = 0usize;
     for (line, f) in &urows {
         let n: u32 = f[fcol].parse().map_err(|_| CaptureError::Table {
             path: utt_path.to_path_buf(),
@@ -468,6 +492,18 @@ pub fn read_segments(
                 found: format!("'{}' a second time", f[ucol]),
             });
         }
+        if listed.saturating_add(n as usize) > max_frames {
+            return Err(CaptureError::Table {
+                path: utt_path.to_path_buf(),
+                row: *line,
+                field: "frames".into(),
+                expected: format!(
+                    "at most {max_frames} frames in all (the frames of the layer files)"
+                ),
+                found: format!("{} frames up to this row", listed as u64 + n as u64),
+            });
+        }
+        listed += n as usize;
         let s = b.speaker(&f[scol]);
         b.utterances.push(f[ucol].clone());
         b.utt_speaker.push(s);

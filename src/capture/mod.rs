@@ -276,13 +276,16 @@ impl Capture {
                 win_s: config.win_s.unwrap_or(config.hop_s),
             };
             (
-                labels::read_segments(
+                labels::read_segments_within(
                     &utt_tsv,
                     &seg_tsv,
                     &cols,
                     &config.segment_label,
                     timing,
                     &label_opts,
+                    // The layers hold this many frames; more in the table is a mismatch that
+                    // the check below reports, so the conversion need not go further.
+                    layers.iter().map(|l| l.frames()).max().unwrap_or(0),
                 )?,
                 "utterances.tsv + segments.tsv".to_string(),
             )
@@ -518,7 +521,17 @@ fn find_layers(dir: &Path, config: &CaptureConfig) -> Result<Vec<LayerSource>, C
                 format!("{:?}", f.header().shape),
             ));
         }
-        let (l, _, _) = f.layer_shape();
+        let (l, n, d) = f.layer_shape();
+        // An empty stack can claim any number of layers (the data size is 0 bytes); refuse it
+        // before making one source per claimed layer.
+        if n == 0 || d == 0 {
+            return Err(CaptureError::invalid(
+                &p,
+                "shape",
+                "at least one frame and one feature per layer",
+                format!("{:?}", f.header().shape),
+            ));
+        }
         if l == 0 {
             return Err(CaptureError::invalid(
                 &p,

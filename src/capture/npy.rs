@@ -189,6 +189,22 @@ pub fn parse_header(path: &Path, bytes: &[u8], file_len: u64) -> Result<NpyHeade
             format!("{:?}", header.shape),
         )
     })?;
+    // Arrays are built with ndarray, which requires the product of the non-zero axis lengths
+    // to fit in isize even when another axis is 0; a header like (0, 2**63) is refused here.
+    let nonzero = header
+        .shape
+        .iter()
+        .filter(|&&d| d != 0)
+        .try_fold(1usize, |a, &d| a.checked_mul(d))
+        .filter(|&p| p <= isize::MAX as usize);
+    if nonzero.is_none() {
+        return Err(bad(
+            path,
+            "shape",
+            "axis lengths whose product fits in memory addresses",
+            format!("{:?}", header.shape),
+        ));
+    }
     let need = (n as u128) * (dtype.size() as u128);
     let have = (file_len as u128).saturating_sub(end as u128);
     if need != have {
