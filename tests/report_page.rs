@@ -67,10 +67,6 @@ fn write_capture(dir: &Path, seed: u64) {
     }
 }
 
-fn n_frames() -> usize {
-    SPEAKERS * UTTS_PER_SPEAKER * FRAMES_PER_UTT
-}
-
 #[test]
 fn report_writes_page_run_json_and_probe_outputs() {
     let t = tempfile::tempdir().unwrap();
@@ -92,6 +88,14 @@ fn report_writes_page_run_json_and_probe_outputs() {
         "probe.json",
         "probe.csv",
         "probe.svg",
+        "purity.json",
+        "purity.csv",
+        "purity.svg",
+        "map_speaker.svg",
+        "map_phone.svg",
+        "maps/frames.npy",
+        "maps/layer_00.npy",
+        "maps/layer_02.npy",
     ] {
         assert!(out.join(f).is_file(), "{f} missing");
     }
@@ -141,6 +145,60 @@ fn report_writes_page_run_json_and_probe_outputs() {
         steps.iter().any(|s| s.starts_with("probe")) && steps.contains(&"total"),
         "{steps:?}"
     );
+}
+
+#[test]
+fn report_on_two_captures_compares_them() {
+    let t = tempfile::tempdir().unwrap();
+    let (a, b) = (t.path().join("early"), t.path().join("final"));
+    write_capture(&a, 1);
+    write_capture(&b, 2);
+    let out = t.path().join("out");
+    let o = bin()
+        .args(["report", "--quiet", "--map-method", "pca"])
+        .arg(&a)
+        .arg(&b)
+        .arg("--out")
+        .arg(&out)
+        .output()
+        .unwrap();
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    for f in [
+        "compare.json",
+        "compare_cka.svg",
+        "compare_probe.svg",
+        "early/purity.json",
+        "final/maps/frames.npy",
+    ] {
+        assert!(out.join(f).is_file(), "{f} missing");
+    }
+    let page = std::fs::read_to_string(out.join("index.html")).unwrap();
+    let cmp: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(out.join("compare.json")).unwrap()).unwrap();
+    let deltas = cmp["probe_delta"].as_array().unwrap();
+    assert!(!deltas.is_empty());
+    // Every probe delta row reaches the page's table (its McNemar method is in the JSON only).
+    assert!(page.contains("McNemar p"));
+    assert_eq!(
+        cmp["records"].as_array().unwrap().len(),
+        LAYERS * LAYERS,
+        "CKA for every layer pair"
+    );
+    let run: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(out.join("run.json")).unwrap()).unwrap();
+    let outputs: Vec<&str> = run["outputs"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|v| v.as_str().unwrap())
+        .collect();
+    for f in ["compare.json", "early/purity.json", "final/map_phone.svg"] {
+        assert!(outputs.contains(&f), "run.json outputs lack {f}");
+    }
+    let steps = run["timings"].to_string();
+    for s in ["\"map early\"", "\"map final\"", "\"compare\""] {
+        assert!(steps.contains(s), "no timing for {s}: {steps}");
+    }
 }
 
 #[test]
