@@ -1376,6 +1376,7 @@ mod page_tests {
                         layer_a: i,
                         layer_b: j,
                         cka: Some(1.0 / (1.0 + (i as f64 - j as f64).abs())),
+                        ..Default::default()
                     })
                 })
                 .collect(),
@@ -1386,6 +1387,7 @@ mod page_tests {
                 accuracy_b: Some(0.6),
                 delta: Some(0.1),
                 mcnemar_p: Some(1e-5),
+                ..Default::default()
             }],
         };
         let inp = ReportInputs {
