@@ -200,6 +200,9 @@ enum Command {
         /// Write into an output folder that already holds files.
         #[arg(long)]
         force: bool,
+        /// Layer map method (pca is much faster on big captures).
+        #[arg(long = "map-method", value_enum, default_value = "tsne")]
+        map_method: MapMethod,
         #[command(flatten)]
         cap: CaptureArgs,
     },
@@ -380,13 +383,22 @@ fn run(cli: Cli) -> Result<(), Error> {
             captures,
             out,
             force,
+            map_method,
             cap,
         } => {
+            let method = match map_method {
+                MapMethod::Tsne => voxstrata::map::Method::Tsne,
+                MapMethod::Pca => voxstrata::map::Method::Pca,
+            };
             let opts = voxstrata::report::ReportOptions {
                 out,
                 force,
                 common,
                 open: open_options(&cap)?,
+                map: voxstrata::map::MapOptions {
+                    method,
+                    ..Default::default()
+                },
                 ..Default::default()
             };
             let rec = voxstrata::report::run(&captures, &opts, &progress)?;

@@ -9,7 +9,6 @@ use std::sync::{Arc, Mutex};
 
 use ndarray::Array2;
 use rand::{Rng, SeedableRng};
-use voxstrata::report::{self, CaptureSection, MapSet, ReportInputs};
 
 /// A phone label that tries to break out of the page's script and markup.
 const HOSTILE: &str = "</script><script>window.__pwned=1</script>";
@@ -68,10 +67,6 @@ fn write_capture(dir: &Path, seed: u64) {
     }
 }
 
-fn n_frames() -> usize {
-    SPEAKERS * UTTS_PER_SPEAKER * FRAMES_PER_UTT
-}
-
 #[test]
 fn report_writes_page_run_json_and_probe_outputs() {
     let t = tempfile::tempdir().unwrap();
@@ -93,6 +88,14 @@ fn report_writes_page_run_json_and_probe_outputs() {
         "probe.json",
         "probe.csv",
         "probe.svg",
+        "purity.json",
+        "purity.csv",
+        "purity.svg",
+        "map_speaker.svg",
+        "map_phone.svg",
+        "maps/frames.npy",
+        "maps/layer_00.npy",
+        "maps/layer_02.npy",
     ] {
         assert!(out.join(f).is_file(), "{f} missing");
     }
@@ -142,6 +145,60 @@ fn report_writes_page_run_json_and_probe_outputs() {
         steps.iter().any(|s| s.starts_with("probe")) && steps.contains(&"total"),
         "{steps:?}"
     );
+}
+
+#[test]
+fn report_on_two_captures_compares_them() {
+    let t = tempfile::tempdir().unwrap();
+    let (a, b) = (t.path().join("early"), t.path().join("final"));
+    write_capture(&a, 1);
+    write_capture(&b, 2);
+    let out = t.path().join("out");
+    let o = bin()
+        .args(["report", "--quiet", "--map-method", "pca"])
+        .arg(&a)
+        .arg(&b)
+        .arg("--out")
+        .arg(&out)
+        .output()
+        .unwrap();
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    for f in [
+        "compare.json",
+        "compare_cka.svg",
+        "compare_probe.svg",
+        "early/purity.json",
+        "final/maps/frames.npy",
+    ] {
+        assert!(out.join(f).is_file(), "{f} missing");
+    }
+    let page = std::fs::read_to_string(out.join("index.html")).unwrap();
+    let cmp: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(out.join("compare.json")).unwrap()).unwrap();
+    let deltas = cmp["probe_delta"].as_array().unwrap();
+    assert!(!deltas.is_empty());
+    // Every probe delta row reaches the page's table (its McNemar method is in the JSON only).
+    assert!(page.contains("McNemar p"));
+    assert_eq!(
+        cmp["records"].as_array().unwrap().len(),
+        LAYERS * LAYERS,
+        "CKA for every layer pair"
+    );
+    let run: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(out.join("run.json")).unwrap()).unwrap();
+    let outputs: Vec<&str> = run["outputs"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|v| v.as_str().unwrap())
+        .collect();
+    for f in ["compare.json", "early/purity.json", "final/map_phone.svg"] {
+        assert!(outputs.contains(&f), "run.json outputs lack {f}");
+    }
+    let steps = run["timings"].to_string();
+    for s in ["\"map early\"", "\"map final\"", "\"compare\""] {
+        assert!(steps.contains(s), "no timing for {s}: {steps}");
+    }
 }
 
 #[test]
@@ -236,67 +293,24 @@ fn chromium() -> Option<PathBuf> {
     .find(|p| p.is_file())
 }
 
-/// Map coordinates the test controls: each layer places the frames on a 20 × 12 grid,
-/// turned by 40° more per layer, so every point is far from its neighbours.
-fn test_maps(cap: &voxstrata::Capture) -> MapSet {
-    let frames: Vec<u64> = (0..n_frames() as u64).collect();
-    let layers = (0..LAYERS)
-        .map(|l| {
-            let a = (40.0 * l as f32).to_radians();
-            let mut m = Array2::<f32>::zeros((frames.len(), 2));
-            for (i, &f) in frames.iter().enumerate() {
-                let (gx, gy) = ((f % 20) as f32, (f / 20) as f32);
-                m[[i, 0]] = gx * a.cos() - gy * a.sin();
-                m[[i, 1]] = gx * a.sin() + gy * a.cos();
-            }
-            (l, m)
-        })
-        .collect();
-    let info = report::frame_info(cap, &frames).unwrap();
-    MapSet {
-        capture: cap.name.clone(),
-        frames,
-        layers,
-        info,
-    }
-}
-
-/// The page from a synthetic capture: summary, real probe records, and controlled maps.
-fn build_page(dir: &Path) -> PathBuf {
+/// The page the real `report` command writes for a synthetic capture (probe, t-SNE maps,
+/// purity), with the sampled frame indices of its maps.
+fn build_page(dir: &Path) -> (PathBuf, Vec<u64>) {
+    use ndarray_npy::ReadNpyExt;
     let cap_dir = dir.join("cap");
     write_capture(&cap_dir, 5);
-    let cap = voxstrata::Capture::open(&cap_dir, &Default::default()).unwrap();
-    let probe_opts = voxstrata::probe::ProbeOptions {
-        bootstrap: 100,
-        ..Default::default()
-    };
-    let rep = voxstrata::probe::run(
-        &cap,
-        &probe_opts,
-        &Default::default(),
-        &voxstrata::Progress::hidden(),
-    )
-    .unwrap();
-    let probe: Vec<report::ProbeRecord> =
-        serde_json::from_value(serde_json::to_value(&rep.records).unwrap()).unwrap();
-    let inputs = ReportInputs {
-        title: "voxstrata report: synthetic".into(),
-        captures: vec![CaptureSection {
-            summary: voxstrata::inspect::summarise(&cap),
-            probe,
-            purity: vec![],
-            maps: Some(test_maps(&cap)),
-        }],
-        methods: report::Methods {
-            version: "test".into(),
-            ..Default::default()
-        },
-        ..Default::default()
-    };
-    let page = report::render(&inputs).unwrap();
-    let path = dir.join("index.html");
-    std::fs::write(&path, page).unwrap();
-    path
+    let out = dir.join("out");
+    let o = bin()
+        .args(["report", "--quiet", "--seed", "2"])
+        .arg(&cap_dir)
+        .arg("--out")
+        .arg(&out)
+        .output()
+        .unwrap();
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    let f = std::fs::File::open(out.join("maps").join("frames.npy")).unwrap();
+    let frames = ndarray::Array1::<u64>::read_npy(f).unwrap().to_vec();
+    (out.join("index.html"), frames)
 }
 
 #[test]
@@ -310,7 +324,8 @@ fn page_works_in_headless_chromium() {
         return;
     };
     let t = tempfile::tempdir().unwrap();
-    let page = build_page(t.path());
+    let (page, frames) = build_page(t.path());
+    assert!(frames.len() > 100, "map sample: {} frames", frames.len());
     let profile = t.path().join("profile");
     let args: Vec<&std::ffi::OsStr> = [
         "--disable-background-networking",
@@ -428,20 +443,31 @@ fn page_works_in_headless_chromium() {
         "0"
     );
 
-    // Hover over frame 37: the tooltip names its utterance, time, speaker and phone.
-    let check_hover = |frame: usize| {
+    // Hover over the point of sample i: the tooltip names the frame under the pointer (the
+    // point drawn there; t-SNE may stack a few) with its utterance, time, speaker and phone.
+    let check_hover = |i: usize| {
         eval("document.getElementById('vx-canvas').scrollIntoView({block: 'center'})");
-        let p = eval(&format!("window.voxstrataExplorer.pointClient({frame})"));
-        let (x, y) = (p["x"].as_f64().unwrap(), p["y"].as_f64().unwrap());
-        tab.move_mouse_to_point(Point {
-            x: x + 1.0,
-            y: y - 1.0,
-        })
-        .unwrap();
+        let p = eval(&format!("window.voxstrataExplorer.pointClient({i})"));
+        let (x, y) = (
+            p["x"].as_f64().unwrap() + 1.0,
+            p["y"].as_f64().unwrap() - 1.0,
+        );
+        tab.move_mouse_to_point(Point { x, y }).unwrap();
         let tip = eval("(() => { const t = document.getElementById('vx-tip'); return [t.hidden, t.textContent, t.dataset.frame]; })()");
-        assert_eq!(tip[0], false, "tooltip hidden at frame {frame}");
+        assert_eq!(tip[0], false, "tooltip hidden at sample {i}");
         let text = tip[1].as_str().unwrap().to_string();
-        assert_eq!(tip[2].as_str().unwrap(), frame.to_string());
+        let frame: usize = tip[2].as_str().unwrap().parse().unwrap();
+        // The named frame is one of the sample, drawn within a few pixels of the pointer.
+        let j = frames
+            .iter()
+            .position(|&f| f as usize == frame)
+            .expect("tooltip frame is in the map sample");
+        let q = eval(&format!("window.voxstrataExplorer.pointClient({j})"));
+        let d = (q["x"].as_f64().unwrap() - x).hypot(q["y"].as_f64().unwrap() - y);
+        assert!(
+            d < 8.0,
+            "tooltip frame {frame} drawn {d:.1} px from the pointer"
+        );
         let (s, rest) = (
             frame / (UTTS_PER_SPEAKER * FRAMES_PER_UTT),
             frame % (UTTS_PER_SPEAKER * FRAMES_PER_UTT),
@@ -471,7 +497,7 @@ fn page_works_in_headless_chromium() {
         first[1], third[1],
         "layer 2 drew the same picture as layer 0"
     );
-    check_hover(201);
+    check_hover(frames.len() - 7);
 
     // Arrow keys step between layers.
     eval("document.activeElement && document.activeElement.blur()");
@@ -510,4 +536,48 @@ fn page_works_in_headless_chromium() {
             "request outside the file: {r}"
         );
     }
+}
+
+/// Time to first render of a given report page (`VOXSTRATA_PAGE`, e.g. the demo report):
+/// the page's load event ends after its inline explorer script has drawn the first layer.
+/// A measurement, not a check: `cargo test --test report_page -- --ignored --nocapture`.
+#[test]
+#[ignore]
+fn time_first_render_of_a_page() {
+    use headless_chrome::{Browser, LaunchOptions};
+    let (Some(chrome), Ok(page)) = (chromium(), std::env::var("VOXSTRATA_PAGE")) else {
+        eprintln!("time_first_render_of_a_page: SKIPPED: needs Chromium and VOXSTRATA_PAGE");
+        return;
+    };
+    let t = tempfile::tempdir().unwrap();
+    let opts = LaunchOptions::default_builder()
+        .path(Some(chrome))
+        .headless(true)
+        .sandbox(false)
+        .enable_gpu(false)
+        .window_size(Some((1400, 1000)))
+        .user_data_dir(Some(t.path().join("profile")))
+        .build()
+        .unwrap();
+    let browser = Browser::new(opts).unwrap();
+    let tab = browser.new_tab().unwrap();
+    let page = std::fs::canonicalize(page).unwrap();
+    let started = std::time::Instant::now();
+    tab.navigate_to(&format!("file://{}", page.display()))
+        .unwrap()
+        .wait_until_navigated()
+        .unwrap();
+    tab.wait_for_element("#vx-canvas").unwrap();
+    let wall = started.elapsed().as_secs_f64();
+    let v = tab
+        .evaluate(
+            "JSON.stringify((() => { const n = performance.getEntriesByType('navigation')[0]; return [n.domContentLoadedEventEnd, n.loadEventEnd]; })())",
+            false,
+        )
+        .unwrap()
+        .value;
+    eprintln!(
+        "first render of {}: [DOMContentLoaded end, load end] in ms = {v:?}; wall {wall:.2} s (with DevTools round trips)",
+        page.display()
+    );
 }

@@ -940,11 +940,31 @@ fn methods_html(out: &mut String, inp: &ReportInputs) {
         }
         match &sec.maps {
             Some(mp) => {
+                let o = m
+                    .options
+                    .iter()
+                    .find(|(k, _)| k == &format!("map {name}"))
+                    .map(|(_, v)| v.clone())
+                    .unwrap_or(serde_json::Value::Null);
+                let num = |v: &serde_json::Value| v.as_f64().map(|x| format!("{x}"));
+                let how = match o["method"].as_str() {
+                    Some("tsne") => format!(
+                        "t-SNE (van der Maaten & Hinton 2008) after PCA to {} dimensions, perplexity {}, {} iterations, each layer started from the previous layer's map",
+                        num(&o["pca_dims"]).unwrap_or("?".into()),
+                        num(&o["tsne"]["perplexity"]).unwrap_or("?".into()),
+                        num(&o["tsne"]["iterations"]).unwrap_or("?".into())
+                    ),
+                    Some("pca") => "the first two principal components, aligned layer to layer by orthogonal Procrustes".to_string(),
+                    _ => "a 2-D embedding".to_string(),
+                };
                 let _ = write!(
                     p,
-                    "Its 2-D maps place the same {} sampled frames for each of {} layers. ",
+                    "Its 2-D maps place the same {} sampled frames (up to {} per speaker × phone cell) for each of {} layers, drawn by {how}; purity is measured on those frames with k = {} nearest neighbours and k-means with {} clusters (Hsu et al. 2021). ",
                     mp.frames.len(),
-                    mp.layers.len()
+                    num(&o["per_label"]).unwrap_or("?".into()),
+                    mp.layers.len(),
+                    num(&o["knn_k"]).unwrap_or("?".into()),
+                    num(&o["kmeans_k"]).unwrap_or("?".into()),
                 );
             }
             None => {
@@ -953,11 +973,26 @@ fn methods_html(out: &mut String, inp: &ReportInputs) {
         }
     }
     if let Some(c) = &inp.compare {
+        let o = m
+            .options
+            .iter()
+            .find(|(k, _)| k == "compare")
+            .map(|(_, v)| v.clone())
+            .unwrap_or(serde_json::Value::Null);
+        let kernel = c.cka.first().map(|r| r.kernel.as_str()).unwrap_or("linear");
+        let estimator = c
+            .cka
+            .first()
+            .map(|r| r.estimator.as_str())
+            .unwrap_or("full");
+        let n = c.cka.first().map(|r| r.n_frames).unwrap_or(0);
         let _ = write!(
             p,
-            "The two captures were compared layer by layer with linear CKA (Kornblith et al. 2019) over {} layer pairs and by McNemar's test on paired probe predictions ({} layer–task pairs). ",
+            "The two captures were compared layer by layer with {kernel} CKA (Kornblith et al. 2019, {estimator} HSIC estimate on {n} paired frames) over {} layer pairs, and by probes trained with the same split and seed on both, tested with McNemar's test on the paired test predictions and a paired speaker bootstrap ({} resamples) of the accuracy difference ({} layer–task pairs, {} of the test groups held out). ",
             c.cka.len(),
-            c.probe_delta.len()
+            o["bootstrap"].as_u64().map(|b| b.to_string()).unwrap_or("?".into()),
+            c.probe_delta.len(),
+            o["test_fraction"].as_f64().map(|f| format!("{:.0}%", f * 100.0)).unwrap_or("?".into()),
         );
     }
     let _ = write!(p, "Every random choice was seeded with {}; the same seed and inputs give the same numbers whatever the thread count.", m.seed);
@@ -1125,17 +1160,23 @@ pub fn render(inp: &ReportInputs) -> Result<String, ReportError> {
                     f3(d.accuracy_a),
                     f3(d.accuracy_b),
                     f3(d.delta),
+                    format!("{} to {}", f3(d.ci_low), f3(d.ci_high)),
                     pvalue(d.mcnemar_p),
+                    match (d.b, d.c) {
+                        (Some(b), Some(c)) => format!("{b} / {c}"),
+                        _ => "–".into(),
+                    },
                 ]
             })
             .collect();
         if !rows.is_empty() {
             let a = format!("accuracy {}", c.name_a);
             let b = format!("accuracy {}", c.name_b);
+            let only = format!("right on {} only / {} only", c.name_a, c.name_b);
             table(
                 &mut o,
-                "Probe accuracy per layer in both captures (McNemar's test on paired predictions)",
-                &["layer", "task", &a, &b, "difference", "McNemar p"],
+                "Probe accuracy per layer in both captures (difference with its paired speaker-bootstrap 95% interval; McNemar's test on paired predictions)",
+                &["layer", "task", &a, &b, "difference", "95% interval", "McNemar p", &only],
                 &rows,
             );
         }
@@ -1335,6 +1376,7 @@ mod page_tests {
                         layer_a: i,
                         layer_b: j,
                         cka: Some(1.0 / (1.0 + (i as f64 - j as f64).abs())),
+                        ..Default::default()
                     })
                 })
                 .collect(),
@@ -1345,6 +1387,7 @@ mod page_tests {
                 accuracy_b: Some(0.6),
                 delta: Some(0.1),
                 mcnemar_p: Some(1e-5),
+                ..Default::default()
             }],
         };
         let inp = ReportInputs {

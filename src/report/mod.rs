@@ -161,6 +161,12 @@ pub struct CkaRecord {
     pub layer_b: usize,
     /// Linear CKA.
     pub cka: Option<f64>,
+    /// Kernel (`linear` or `rbf`).
+    pub kernel: String,
+    /// HSIC estimator (`full` or `minibatch`).
+    pub estimator: String,
+    /// Paired frames the value was computed on.
+    pub n_frames: usize,
 }
 
 /// One probe delta of `compare.json`.
@@ -177,8 +183,20 @@ pub struct ProbeDelta {
     pub accuracy_b: Option<f64>,
     /// `accuracy_b - accuracy_a`.
     pub delta: Option<f64>,
+    /// Lower end of the paired speaker-bootstrap 95% interval of `delta`.
+    pub ci_low: Option<f64>,
+    /// Upper end of that interval.
+    pub ci_high: Option<f64>,
     /// McNemar's test p-value on the paired test predictions.
     pub mcnemar_p: Option<f64>,
+    /// Test rows right on the first capture only.
+    pub b: Option<u64>,
+    /// Test rows right on the second capture only.
+    pub c: Option<u64>,
+    /// `exact` (binomial) or `chi_square`.
+    pub mcnemar_method: String,
+    /// Test rows.
+    pub n_test: usize,
 }
 
 /// Comparison of two captures.
@@ -598,6 +616,10 @@ pub struct ReportOptions {
     pub open: OpenOptions,
     /// Probe settings.
     pub probe: crate::probe::ProbeOptions,
+    /// Map and purity settings.
+    pub map: crate::map::MapOptions,
+    /// Comparison settings (two captures).
+    pub compare: crate::compare::CompareOptions,
 }
 
 /// What `run` did, written as `run.json`.
@@ -812,6 +834,52 @@ pub fn run(
             outputs.push(rel(&opts.out, &dir.join(format!("{stem}.svg"))));
         }
         time(&mut timings, &format!("probe {}", c.name), t);
+
+        let t = Instant::now();
+        let rep = crate::map::run(c, &opts.map, &opts.common, progress)?;
+        // The folder is this run's own (checked above), so writing into it is safe.
+        crate::map::write_outputs(&rep, dir, true)?;
+        for f in ["purity.json", "purity.csv", "purity.png", "purity.svg"] {
+            outputs.push(rel(&opts.out, &dir.join(f)));
+        }
+        outputs.push(rel(&opts.out, &dir.join("maps").join("frames.npy")));
+        for l in &rep.layers {
+            let f = format!("layer_{:02}.npy", l.layer);
+            outputs.push(rel(&opts.out, &dir.join("maps").join(f)));
+        }
+        for name in &rep.colourings {
+            let stem = format!("map_{}", figure_stem(name));
+            for ext in ["png", "svg"] {
+                let p = dir.join(format!("{stem}.{ext}"));
+                if p.is_file() {
+                    outputs.push(rel(&opts.out, &p));
+                }
+            }
+        }
+        time(&mut timings, &format!("map {}", c.name), t);
+    }
+
+    // The comparison of two checkpoints, into the top folder.
+    if let [a, b] = caps.as_slice() {
+        let t = Instant::now();
+        let rep = crate::compare::run(a, b, &opts.compare, &opts.common, progress)?;
+        crate::compare::write_outputs(&rep, &opts.out)?;
+        for f in [
+            "compare.json",
+            "compare.csv",
+            "compare_probe_delta.csv",
+            "compare_cka.png",
+            "compare_cka.svg",
+            "compare_change.png",
+            "compare_change.svg",
+            "compare_probe.png",
+            "compare_probe.svg",
+        ] {
+            if opts.out.join(f).is_file() {
+                outputs.push(f.to_string());
+            }
+        }
+        time(&mut timings, "compare", t);
     }
 
     // Read back whatever the analyses wrote.
@@ -847,8 +915,16 @@ pub fn run(
                     "speaker confusions at the best layer",
                     FigureSection::Probe,
                 ),
-                ("map", "layer maps", FigureSection::Maps),
-                ("maps", "layer maps", FigureSection::Maps),
+                (
+                    "map_speaker",
+                    "layer maps coloured by speaker",
+                    FigureSection::Maps,
+                ),
+                (
+                    "map_phone",
+                    "layer maps coloured by phone",
+                    FigureSection::Maps,
+                ),
                 ("purity", "purity by layer", FigureSection::Maps),
             ],
             &prefix(c),
@@ -863,8 +939,21 @@ pub fn run(
         figures.extend(read_figures(
             &opts.out,
             &[
-                ("compare", "CKA between layers", FigureSection::Compare),
-                ("cka", "CKA between layers", FigureSection::Compare),
+                (
+                    "compare_cka",
+                    "CKA between every pair of layers",
+                    FigureSection::Compare,
+                ),
+                (
+                    "compare_change",
+                    "change at each layer (1 − CKA of the same layer)",
+                    FigureSection::Compare,
+                ),
+                (
+                    "compare_probe",
+                    "probe accuracy on both checkpoints",
+                    FigureSection::Compare,
+                ),
             ],
             "",
         ));
@@ -925,6 +1014,7 @@ pub fn run(
             "drop_label": opts.open.labels.drop,
             "merge_labels": opts.open.labels.merge.len(),
             "allow_nonfinite": opts.open.allow_nonfinite,
+            "map_method": opts.map.method,
         }),
         timings,
         inputs: hashes,
@@ -935,6 +1025,19 @@ pub fn run(
     json.push(b'\n');
     output::write_atomic(&opts.out.join("run.json"), &json)?;
     Ok(record)
+}
+
+/// The file-name form the map stage gives a label name (`map_<name>.svg`).
+fn figure_stem(name: &str) -> String {
+    name.chars()
+        .map(|c| {
+            if c.is_alphanumeric() || c == '-' || c == '_' {
+                c
+            } else {
+                '_'
+            }
+        })
+        .collect()
 }
 
 fn rel(base: &Path, p: &Path) -> String {
