@@ -174,20 +174,28 @@ def make_tsne(quick):
 
 
 def make_cka(quick):
-    """A capture whose layers come from a random residual network (so neighbouring layers are
-    similar and far ones are not), 13 layers x frames x 768, f32, with frames.tsv."""
+    """Two captures of the same frames, a/ and b/, each 13 layers x frames x 768 f32 with
+    frames.tsv, from a random residual network; b's weights are a's plus noise that grows with
+    depth (like a fine-tuned checkpoint), so neighbouring layers are similar, far ones are not,
+    and the upper layers of a and b differ most."""
     d, p, ok = _fresh("cka", quick)
     if ok:
         return d
     rng = np.random.default_rng(SEED + 3)
     n, dim, L = p["frames"], p["dim"], p["layers"]
-    h = rng.standard_normal((n, dim), dtype=np.float32)
-    for layer in range(L):
-        np.save(os.path.join(d, f"layer_{layer:02d}.npy"), h)
-        w = rng.standard_normal((dim, dim), dtype=np.float32) / np.sqrt(dim)
-        h = (h + np.tanh(h @ w) * 1.5).astype(np.float32)
-        h /= h.std()
-    _frames_tsv(os.path.join(d, "frames.tsv"), n)
+    x0 = rng.standard_normal((n, dim), dtype=np.float32)
+    ws = [rng.standard_normal((dim, dim), dtype=np.float32) / np.sqrt(dim) for _ in range(L)]
+    for cap, noise in (("a", 0.0), ("b", 1.0)):
+        os.makedirs(os.path.join(d, cap))
+        h = x0.copy()
+        for layer in range(L):
+            np.save(os.path.join(d, cap, f"layer_{layer:02d}.npy"), h)
+            w = ws[layer]
+            if noise:
+                w = w + rng.standard_normal((dim, dim), dtype=np.float32) * (noise * layer / L / np.sqrt(dim))
+            h = (h + np.tanh(h @ w) * 1.5).astype(np.float32)
+            h /= h.std()
+        _frames_tsv(os.path.join(d, cap, "frames.tsv"), n)
     _done(d, p)
     return d
 
