@@ -5,6 +5,7 @@ use crate::capture::CaptureError;
 use crate::output::OutputError;
 use crate::plot::PlotError;
 use crate::probe::ProbeError;
+use crate::report::ReportError;
 
 /// Any error the library returns to the CLI.
 #[derive(Debug, thiserror::Error)]
@@ -18,6 +19,9 @@ pub enum Error {
     /// Drawing failed.
     #[error(transparent)]
     Plot(#[from] PlotError),
+    /// The report stage failed.
+    #[error(transparent)]
+    Report(#[from] ReportError),
     /// The probe stage failed.
     #[error(transparent)]
     Probe(#[from] ProbeError),
@@ -38,6 +42,8 @@ impl Error {
         match self {
             Error::Capture(_) | Error::Input(_) => 2,
             Error::Output(OutputError::Refused { .. }) => 2,
+            Error::Report(e) if e.is_input() => 2,
+            Error::Report(_) => 1,
             Error::Probe(ProbeError::Input(_)) => 2,
             Error::Probe(ProbeError::Internal(_)) => 1,
             Error::Output(_) | Error::Plot(_) | Error::NotYet(_) | Error::Internal(_) => 1,

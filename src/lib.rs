@@ -12,6 +12,7 @@ pub mod output;
 pub mod plot;
 pub mod probe;
 pub mod progress;
+pub mod report;
 pub mod select;
 
 pub use capture::{Capture, CaptureError, OpenOptions};

@@ -125,6 +125,12 @@ enum Command {
     Report {
         /// One or two captures (none: the shipped demo).
         captures: Vec<PathBuf>,
+        /// Output folder (index.html, run.json and every analysis's records and figures).
+        #[arg(long, default_value = "voxstrata-report")]
+        out: PathBuf,
+        /// Write into an output folder that already holds files.
+        #[arg(long)]
+        force: bool,
         #[command(flatten)]
         cap: CaptureArgs,
     },
@@ -211,7 +217,29 @@ fn run(cli: Cli) -> Result<(), Error> {
         }
         Command::Map { .. } => Err(Error::NotYet("map")),
         Command::Compare { .. } => Err(Error::NotYet("compare")),
-        Command::Report { .. } => Err(Error::NotYet("report")),
+        Command::Report {
+            captures,
+            out,
+            force,
+            cap,
+        } => {
+            let opts = voxstrata::report::ReportOptions {
+                out,
+                force,
+                common,
+                open: open_options(&cap)?,
+                ..Default::default()
+            };
+            let rec = voxstrata::report::run(&captures, &opts, &progress)?;
+            if !cli.quiet {
+                let total = rec.timings.last().map(|t| t.seconds).unwrap_or(0.0);
+                eprintln!(
+                    "voxstrata: report written to {} ({total:.1} s)",
+                    opts.out.join("index.html").display()
+                );
+            }
+            Ok(())
+        }
         Command::Demo { .. } => Err(Error::NotYet("demo")),
     }
 }

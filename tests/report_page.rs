@@ -1,0 +1,513 @@
+//! The report end to end: the `report` command on small synthetic captures (outputs, refusals,
+//! escaping of hostile labels) and the page in a real headless Chromium driven over the
+//! DevTools protocol (no console errors, no request outside the file, the explorer draws,
+//! the slider and arrow keys change the layer, hover shows the right frame's labels).
+
+use std::path::{Path, PathBuf};
+use std::process::Command;
+use std::sync::{Arc, Mutex};
+
+use ndarray::Array2;
+use rand::{Rng, SeedableRng};
+use voxstrata::report::{self, CaptureSection, MapSet, ReportInputs};
+
+/// A phone label that tries to break out of the page's script and markup.
+const HOSTILE: &str = "</script><script>window.__pwned=1</script>";
+const PHONES: [&str; 4] = ["a", "i", "s", HOSTILE];
+const SPEAKERS: usize = 4;
+const UTTS_PER_SPEAKER: usize = 3;
+const FRAMES_PER_UTT: usize = 20;
+const LAYERS: usize = 3;
+const DIM: usize = 6;
+
+fn bin() -> Command {
+    Command::new(env!("CARGO_BIN_EXE_voxstrata"))
+}
+
+fn utt_name(s: usize, u: usize) -> String {
+    format!("spk{s}_utt{u}")
+}
+
+fn phone_of(pos: usize) -> usize {
+    (pos / 5) % PHONES.len()
+}
+
+/// Write a capture: frames.tsv and one .npy per layer where phone separates more with depth
+/// and speaker less (a cartoon of the usual picture).
+fn write_capture(dir: &Path, seed: u64) {
+    std::fs::create_dir_all(dir).unwrap();
+    let mut tsv = String::from("utterance\tspeaker\tphone\n");
+    let mut rows = Vec::new();
+    for s in 0..SPEAKERS {
+        for u in 0..UTTS_PER_SPEAKER {
+            for pos in 0..FRAMES_PER_UTT {
+                let p = phone_of(pos);
+                tsv.push_str(&format!(
+                    "{}\tspeaker {s} & co\t{}\n",
+                    utt_name(s, u),
+                    PHONES[p]
+                ));
+                rows.push((s, p));
+            }
+        }
+    }
+    std::fs::write(dir.join("frames.tsv"), tsv).unwrap();
+    let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(seed);
+    for l in 0..LAYERS {
+        let w = l as f32 / (LAYERS - 1) as f32;
+        let mut x = Array2::<f32>::zeros((rows.len(), DIM));
+        for (i, &(s, p)) in rows.iter().enumerate() {
+            for d in 0..DIM {
+                let noise: f32 = rng.random_range(-1.0..1.0);
+                let phone = if d == p { 3.0 * w } else { 0.0 };
+                let spk = if d == s + 2 { 3.0 * (1.0 - w) } else { 0.0 };
+                x[[i, d]] = phone + spk + noise;
+            }
+        }
+        ndarray_npy::write_npy(dir.join(format!("layer_{l:02}.npy")), &x).unwrap();
+    }
+}
+
+fn n_frames() -> usize {
+    SPEAKERS * UTTS_PER_SPEAKER * FRAMES_PER_UTT
+}
+
+#[test]
+fn report_writes_page_run_json_and_probe_outputs() {
+    let t = tempfile::tempdir().unwrap();
+    let cap = t.path().join("cap");
+    write_capture(&cap, 1);
+    let out = t.path().join("out");
+    let o = bin()
+        .args(["report", "--quiet", "--seed", "3"])
+        .arg(&cap)
+        .arg("--out")
+        .arg(&out)
+        .output()
+        .unwrap();
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    for f in [
+        "index.html",
+        "run.json",
+        "inspect.json",
+        "probe.json",
+        "probe.csv",
+        "probe.svg",
+    ] {
+        assert!(out.join(f).is_file(), "{f} missing");
+    }
+    let page = std::fs::read_to_string(out.join("index.html")).unwrap();
+    // Self-contained: no external references of any kind.
+    for bad in [
+        "http://",
+        "https://",
+        "<link",
+        " src=\"http",
+        "@import",
+        "url(",
+    ] {
+        if bad == "http://" {
+            // The SVG namespace URI is an identifier, not a request.
+            assert!(
+                page.replace("xmlns=\"http://www.w3.org/2000/svg\"", "")
+                    .find(bad)
+                    .is_none(),
+                "page holds {bad}"
+            );
+        } else {
+            assert!(!page.contains(bad), "page holds {bad}");
+        }
+    }
+    // The hostile label never appears raw, only escaped.
+    assert!(!page.contains(HOSTILE));
+    assert!(
+        page.contains("phone overtakes speaker") || page.contains("speaker below half"),
+        "no crossover marked"
+    );
+    // run.json: inputs hashed, steps timed.
+    let run: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(out.join("run.json")).unwrap()).unwrap();
+    let inputs = run["inputs"].as_array().unwrap();
+    assert_eq!(inputs.len(), LAYERS + 1, "layer files and frames.tsv");
+    for i in inputs {
+        assert_eq!(i["sha256"].as_str().unwrap().len(), 64);
+    }
+    let steps: Vec<&str> = run["timings"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|s| s["step"].as_str().unwrap())
+        .collect();
+    assert!(
+        steps.iter().any(|s| s.starts_with("probe")) && steps.contains(&"total"),
+        "{steps:?}"
+    );
+}
+
+#[test]
+fn report_refuses_a_folder_with_files_unless_forced() {
+    let t = tempfile::tempdir().unwrap();
+    let cap = t.path().join("cap");
+    write_capture(&cap, 2);
+    let out = t.path().join("out");
+    std::fs::create_dir_all(&out).unwrap();
+    std::fs::write(out.join("keep.txt"), "x").unwrap();
+    let o = bin()
+        .args(["report", "--quiet"])
+        .arg(&cap)
+        .arg("--out")
+        .arg(&out)
+        .output()
+        .unwrap();
+    assert_eq!(
+        o.status.code(),
+        Some(2),
+        "{}",
+        String::from_utf8_lossy(&o.stderr)
+    );
+    assert!(!out.join("index.html").exists());
+    let o = bin()
+        .args(["report", "--quiet", "--force"])
+        .arg(&cap)
+        .arg("--out")
+        .arg(&out)
+        .output()
+        .unwrap();
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    assert!(out.join("index.html").is_file() && out.join("keep.txt").is_file());
+}
+
+#[test]
+fn report_stops_on_a_bad_capture_before_any_analysis() {
+    let t = tempfile::tempdir().unwrap();
+    let good = t.path().join("good");
+    write_capture(&good, 3);
+    let bad = t.path().join("bad");
+    write_capture(&bad, 4);
+    // One frame row too many: layers and labels disagree.
+    let mut tsv = std::fs::read_to_string(bad.join("frames.tsv")).unwrap();
+    tsv.push_str("spk0_utt0\tspeaker 0 & co\ta\n");
+    std::fs::write(bad.join("frames.tsv"), tsv).unwrap();
+    let out = t.path().join("out");
+    let o = bin()
+        .args(["report", "--quiet"])
+        .arg(&good)
+        .arg(&bad)
+        .arg("--out")
+        .arg(&out)
+        .output()
+        .unwrap();
+    assert_eq!(
+        o.status.code(),
+        Some(2),
+        "{}",
+        String::from_utf8_lossy(&o.stderr)
+    );
+    assert!(String::from_utf8_lossy(&o.stderr).contains("frames.tsv"));
+    assert!(
+        !out.exists(),
+        "nothing may be written before the captures validate"
+    );
+    // Three captures: refused too.
+    let o = bin()
+        .args(["report", "--quiet"])
+        .arg(&good)
+        .arg(&good)
+        .arg(&good)
+        .arg("--out")
+        .arg(&out)
+        .output()
+        .unwrap();
+    assert_eq!(o.status.code(), Some(2));
+}
+
+/// Chromium from Debian (or the path in VOXSTRATA_CHROMIUM).
+fn chromium() -> Option<PathBuf> {
+    if let Ok(p) = std::env::var("VOXSTRATA_CHROMIUM") {
+        return Some(PathBuf::from(p));
+    }
+    [
+        "/usr/bin/chromium",
+        "/usr/bin/chromium-browser",
+        "/usr/bin/google-chrome",
+    ]
+    .iter()
+    .map(PathBuf::from)
+    .find(|p| p.is_file())
+}
+
+/// Map coordinates the test controls: each layer places the frames on a 20 × 12 grid,
+/// turned by 40° more per layer, so every point is far from its neighbours.
+fn test_maps(cap: &voxstrata::Capture) -> MapSet {
+    let frames: Vec<u64> = (0..n_frames() as u64).collect();
+    let layers = (0..LAYERS)
+        .map(|l| {
+            let a = (40.0 * l as f32).to_radians();
+            let mut m = Array2::<f32>::zeros((frames.len(), 2));
+            for (i, &f) in frames.iter().enumerate() {
+                let (gx, gy) = ((f % 20) as f32, (f / 20) as f32);
+                m[[i, 0]] = gx * a.cos() - gy * a.sin();
+                m[[i, 1]] = gx * a.sin() + gy * a.cos();
+            }
+            (l, m)
+        })
+        .collect();
+    let info = report::frame_info(cap, &frames).unwrap();
+    MapSet {
+        capture: cap.name.clone(),
+        frames,
+        layers,
+        info,
+    }
+}
+
+/// The page from a synthetic capture: summary, real probe records, and controlled maps.
+fn build_page(dir: &Path) -> PathBuf {
+    let cap_dir = dir.join("cap");
+    write_capture(&cap_dir, 5);
+    let cap = voxstrata::Capture::open(&cap_dir, &Default::default()).unwrap();
+    let probe_opts = voxstrata::probe::ProbeOptions {
+        bootstrap: 100,
+        ..Default::default()
+    };
+    let rep = voxstrata::probe::run(
+        &cap,
+        &probe_opts,
+        &Default::default(),
+        &voxstrata::Progress::hidden(),
+    )
+    .unwrap();
+    let probe: Vec<report::ProbeRecord> =
+        serde_json::from_value(serde_json::to_value(&rep.records).unwrap()).unwrap();
+    let inputs = ReportInputs {
+        title: "voxstrata report: synthetic".into(),
+        captures: vec![CaptureSection {
+            summary: voxstrata::inspect::summarise(&cap),
+            probe,
+            purity: vec![],
+            maps: Some(test_maps(&cap)),
+        }],
+        methods: report::Methods {
+            version: "test".into(),
+            ..Default::default()
+        },
+        ..Default::default()
+    };
+    let page = report::render(&inputs).unwrap();
+    let path = dir.join("index.html");
+    std::fs::write(&path, page).unwrap();
+    path
+}
+
+#[test]
+fn page_works_in_headless_chromium() {
+    use headless_chrome::protocol::cdp::types::Event;
+    use headless_chrome::protocol::cdp::Page::CaptureScreenshotFormatOption;
+    use headless_chrome::{browser::tab::point::Point, Browser, LaunchOptions};
+
+    let Some(chrome) = chromium() else {
+        eprintln!("page_works_in_headless_chromium: SKIPPED: no Chromium found (install Debian's `chromium`)");
+        return;
+    };
+    let t = tempfile::tempdir().unwrap();
+    let page = build_page(t.path());
+    let profile = t.path().join("profile");
+    let args: Vec<&std::ffi::OsStr> = [
+        "--disable-background-networking",
+        "--disable-component-update",
+        "--disable-sync",
+        "--no-first-run",
+        "--hide-scrollbars",
+    ]
+    .iter()
+    .map(std::ffi::OsStr::new)
+    .collect();
+    let opts = LaunchOptions::default_builder()
+        .path(Some(chrome))
+        .headless(true)
+        .sandbox(false)
+        .enable_gpu(false)
+        .window_size(Some((1200, 1000)))
+        .user_data_dir(Some(profile))
+        .args(args)
+        .build()
+        .unwrap();
+    let browser = Browser::new(opts).unwrap();
+    let tab = browser.new_tab().unwrap();
+    let errors = Arc::new(Mutex::new(Vec::<String>::new()));
+    let requests = Arc::new(Mutex::new(Vec::<String>::new()));
+    {
+        let (errors, requests) = (errors.clone(), requests.clone());
+        tab.add_event_listener(Arc::new(move |e: &Event| match e {
+            Event::RuntimeExceptionThrown(x) => errors
+                .lock()
+                .unwrap()
+                .push(format!("exception: {:?}", x.params.exception_details.text)),
+            Event::RuntimeConsoleAPICalled(x) => {
+                let kind = format!("{:?}", x.params.Type);
+                if kind.contains("Error") || kind.contains("Warning") || kind.contains("Assert") {
+                    errors.lock().unwrap().push(format!(
+                        "console {kind}: {:?}",
+                        x.params
+                            .args
+                            .iter()
+                            .map(|a| a.value.clone())
+                            .collect::<Vec<_>>()
+                    ));
+                }
+            }
+            Event::LogEntryAdded(x) => {
+                let level = format!("{:?}", x.params.entry.level);
+                // Chromium's advice about repeated getImageData comes from this test's own
+                // pixel reads, not from the page.
+                if (level.contains("Error") || level.contains("Warning"))
+                    && !x.params.entry.text.contains("willReadFrequently")
+                {
+                    errors
+                        .lock()
+                        .unwrap()
+                        .push(format!("log {level}: {}", x.params.entry.text));
+                }
+            }
+            Event::NetworkRequestWillBeSent(x) => {
+                requests.lock().unwrap().push(x.params.request.url.clone())
+            }
+            _ => {}
+        }))
+        .unwrap();
+    }
+    tab.enable_runtime().unwrap();
+    tab.enable_log().unwrap();
+    tab.call_method(headless_chrome::protocol::cdp::Network::Enable {
+        max_total_buffer_size: None,
+        max_resource_buffer_size: None,
+        max_post_data_size: None,
+        report_direct_socket_traffic: None,
+        enable_durable_messages: None,
+    })
+    .unwrap();
+    let url = format!("file://{}", page.display());
+    tab.navigate_to(&url)
+        .unwrap()
+        .wait_until_navigated()
+        .unwrap();
+    tab.wait_for_element("#vx-canvas").unwrap();
+    // Values come back as JSON text, so objects and arrays arrive whole.
+    let eval = |js: &str| -> serde_json::Value {
+        let v = tab
+            .evaluate(&format!("JSON.stringify({js})"), false)
+            .unwrap()
+            .value;
+        match v {
+            Some(serde_json::Value::String(s)) => serde_json::from_str(&s).unwrap(),
+            _ => serde_json::Value::Null,
+        }
+    };
+
+    // The hostile label stayed text: no script of its own ran, and the legend shows it.
+    assert_eq!(eval("typeof window.__pwned"), "undefined");
+    let legend = eval("document.getElementById('vx-legend').textContent");
+    assert!(
+        legend.as_str().unwrap().contains(HOSTILE),
+        "legend: {legend}"
+    );
+
+    // The explorer drew points: many non-white pixels, in more than one colour.
+    let pixels = "(() => { const c = document.getElementById('vx-canvas'); const d = c.getContext('2d').getImageData(0, 0, c.width, c.height).data; let n = 0, h = 0; const cols = new Set(); for (let i = 0; i < d.length; i += 4) { if (d[i] < 235 || d[i+1] < 235 || d[i+2] < 235) { n++; h = (h * 31 + i) % 1000000007; if (d[i] + d[i+1] + d[i+2] > 150) cols.add((d[i] >> 4) + ',' + (d[i+1] >> 4) + ',' + (d[i+2] >> 4)); } } return [n, h, cols.size]; })()";
+    let first = eval(pixels);
+    assert!(
+        first[0].as_u64().unwrap() > 2000,
+        "canvas nearly blank: {first}"
+    );
+    assert!(
+        first[2].as_u64().unwrap() >= PHONES.len() as u64,
+        "too few colours: {first}"
+    );
+    assert_eq!(
+        eval("document.getElementById('explorer').dataset.layer"),
+        "0"
+    );
+
+    // Hover over frame 37: the tooltip names its utterance, time, speaker and phone.
+    let check_hover = |frame: usize| {
+        eval("document.getElementById('vx-canvas').scrollIntoView({block: 'center'})");
+        let p = eval(&format!("window.voxstrataExplorer.pointClient({frame})"));
+        let (x, y) = (p["x"].as_f64().unwrap(), p["y"].as_f64().unwrap());
+        tab.move_mouse_to_point(Point {
+            x: x + 1.0,
+            y: y - 1.0,
+        })
+        .unwrap();
+        let tip = eval("(() => { const t = document.getElementById('vx-tip'); return [t.hidden, t.textContent, t.dataset.frame]; })()");
+        assert_eq!(tip[0], false, "tooltip hidden at frame {frame}");
+        let text = tip[1].as_str().unwrap().to_string();
+        assert_eq!(tip[2].as_str().unwrap(), frame.to_string());
+        let (s, rest) = (
+            frame / (UTTS_PER_SPEAKER * FRAMES_PER_UTT),
+            frame % (UTTS_PER_SPEAKER * FRAMES_PER_UTT),
+        );
+        let (u, pos) = (rest / FRAMES_PER_UTT, rest % FRAMES_PER_UTT);
+        // Default hop 0.02 s, window = hop: centre (pos + 0.5) × 0.02 s (capture format).
+        let time = format!("{:.3} s", (pos as f64 + 0.5) * 0.02);
+        for want in [
+            utt_name(s, u),
+            time,
+            format!("speaker {s} & co"),
+            PHONES[phone_of(pos)].to_string(),
+        ] {
+            assert!(text.contains(&want), "tooltip {text:?} lacks {want:?}");
+        }
+    };
+    check_hover(37);
+
+    // The slider moves to another layer and the drawing changes.
+    eval("(() => { const s = document.getElementById('vx-layer'); s.value = '2'; s.dispatchEvent(new Event('input')); })()");
+    assert_eq!(
+        eval("document.getElementById('explorer').dataset.layer"),
+        "2"
+    );
+    let third = eval(pixels);
+    assert_ne!(
+        first[1], third[1],
+        "layer 2 drew the same picture as layer 0"
+    );
+    check_hover(201);
+
+    // Arrow keys step between layers.
+    eval("document.activeElement && document.activeElement.blur()");
+    tab.press_key("ArrowLeft").unwrap();
+    assert_eq!(
+        eval("document.getElementById('explorer').dataset.layer"),
+        "1"
+    );
+
+    // Clicking a legend entry highlights it.
+    eval("document.querySelector('#vx-legend button').click()");
+    assert_eq!(
+        eval("document.querySelector('#vx-legend button').className"),
+        "on"
+    );
+
+    let shot = tab
+        .capture_screenshot(CaptureScreenshotFormatOption::Png, None, None, true)
+        .unwrap();
+    let art = Path::new(env!("CARGO_TARGET_TMPDIR")).join("report_page");
+    std::fs::create_dir_all(&art).unwrap();
+    std::fs::write(art.join("explorer.png"), shot).unwrap();
+    std::fs::copy(&page, art.join("index.html")).unwrap();
+    eprintln!("screenshot: {}", art.join("explorer.png").display());
+
+    let errors = errors.lock().unwrap().clone();
+    assert!(errors.is_empty(), "console errors: {errors:?}");
+    let requests = requests.lock().unwrap().clone();
+    assert!(
+        !requests.is_empty(),
+        "the network log saw nothing, so it proves nothing"
+    );
+    for r in &requests {
+        assert!(
+            r.starts_with("file://") || r.starts_with("data:"),
+            "request outside the file: {r}"
+        );
+    }
+}
