@@ -7,7 +7,8 @@ its own kernel for the CPU; the kernel it used is reported (threadpoolctl).
     python bench/ref.py read CAPTURE OUR_SAMPLES_DIR EVERY
     python bench/ref.py probe DATA_DIR OUR_FIT_DIR alpha tol max_iter
     python bench/ref.py pca X.npy n_components seed
-    python bench/ref.py tsne X.npy OUR_EMBEDDING.npy perplexity n_iter exaggeration_iter seed
+    python bench/ref.py tsne X.npy REF_EMBEDDING_OUT.npy perplexity n_iter exaggeration_iter seed
+    python bench/ref.py trust X.npy MAP.npy ...
     python bench/ref.py cka CAPTURE_A CAPTURE_B
 """
 import glob
@@ -134,19 +135,23 @@ def pca(x_path, k, seed):
     t = time.perf_counter()
     p = PCA(n_components=k, svd_solver="randomized", random_state=seed).fit(X)
     secs = time.perf_counter() - t
+    # Exact eigenvalues of the covariance (float64), the truth both sides are measured against.
+    xc = X.astype(np.float64)
+    xc -= xc.mean(axis=0)
+    exact = np.linalg.eigvalsh(xc.T @ xc / (len(X) - 1))[::-1][:k]
     emit(
         {
             "seconds": secs,
             "explained_variance": p.explained_variance_.tolist(),
             "explained_variance_ratio": p.explained_variance_ratio_.tolist(),
+            "exact_explained_variance": exact.tolist(),
             "dtype": str(X.dtype),
         }
     )
 
 
-def tsne(x_path, ours_path, perplexity, n_iter, ex_iter, seed):
+def tsne(x_path, ref_out, perplexity, n_iter, ex_iter, seed):
     from openTSNE import TSNE
-    from sklearn.manifold import trustworthiness
 
     X = np.load(x_path)
     t = time.perf_counter()
@@ -161,12 +166,16 @@ def tsne(x_path, ours_path, perplexity, n_iter, ex_iter, seed):
         initialization="pca",
     ).fit(X)
     secs = time.perf_counter() - t
-    emb = np.asarray(emb)
-    res = {"seconds": secs, "trustworthiness": float(trustworthiness(X, emb, n_neighbors=10))}
-    if ours_path and os.path.exists(ours_path):
-        e = np.load(ours_path)
-        res["trustworthiness_ours"] = float(trustworthiness(X, e, n_neighbors=10))
-    emit(res)
+    np.save(ref_out, np.asarray(emb, dtype=np.float32))
+    emit({"seconds": secs, "kl_divergence": float(emb.kl_divergence)})
+
+
+def trust(x_path, *maps):
+    """Trustworthiness (Venna & Kaski 2001, k=10) of each map, by scikit-learn."""
+    from sklearn.manifold import trustworthiness
+
+    X = np.load(x_path)
+    emit({"trustworthiness": [float(trustworthiness(X, np.load(m), n_neighbors=10)) for m in maps]})
 
 
 def _layers(capture):
@@ -215,7 +224,9 @@ if __name__ == "__main__":
     elif cmd == "pca":
         pca(args[0], int(args[1]), int(args[2]))
     elif cmd == "tsne":
-        tsne(args[0], args[1] if len(args) > 1 else None, float(args[2]), int(args[3]), int(args[4]), int(args[5]))
+        tsne(args[0], args[1], float(args[2]), int(args[3]), int(args[4]), int(args[5]))
+    elif cmd == "trust":
+        trust(args[0], *args[1:])
     elif cmd == "cka":
         cka(args[0], args[1])
     else:
