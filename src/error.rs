@@ -2,6 +2,7 @@
 //! can fix it), 1 for internal failure.
 
 use crate::capture::CaptureError;
+use crate::map::MapError;
 use crate::output::OutputError;
 use crate::plot::PlotError;
 use crate::probe::ProbeError;
@@ -25,6 +26,9 @@ pub enum Error {
     /// The probe stage failed.
     #[error(transparent)]
     Probe(#[from] ProbeError),
+    /// The map stage found bad input.
+    #[error(transparent)]
+    Map(#[from] MapError),
     /// Bad input found by an analysis (options that do not fit the data).
     #[error("{0}")]
     Input(String),
@@ -40,7 +44,7 @@ impl Error {
     /// Exit code: 2 for bad input, 1 for internal failure.
     pub fn exit_code(&self) -> i32 {
         match self {
-            Error::Capture(_) | Error::Input(_) => 2,
+            Error::Capture(_) | Error::Input(_) | Error::Map(_) => 2,
             Error::Output(OutputError::Refused { .. }) => 2,
             Error::Report(e) if e.is_input() => 2,
             Error::Report(_) => 1,

@@ -5,13 +5,16 @@
 //! ([`plot`]) and the report. See `docs/design.md`.
 
 pub mod capture;
+pub mod demo;
 pub mod error;
 pub mod inspect;
 pub mod linalg;
+pub mod map;
 pub mod output;
 pub mod plot;
 pub mod probe;
 pub mod progress;
+pub mod purity;
 pub mod report;
 pub mod select;
 

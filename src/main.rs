@@ -109,6 +109,21 @@ enum Command {
     Map {
         /// Capture folder.
         capture: PathBuf,
+        /// Map method.
+        #[arg(long, value_enum, default_value = "tsne")]
+        method: MapMethod,
+        /// Frames drawn per speaker × phone cell (all of a cell's frames when it has fewer).
+        #[arg(long = "per-label", default_value_t = 20)]
+        per_label: usize,
+        /// Also colour the maps by this label (repeatable); speaker and phone are always drawn.
+        #[arg(long = "color-by", value_name = "LABEL")]
+        color_by: Vec<String>,
+        /// Output folder.
+        #[arg(long, default_value = "voxstrata-map")]
+        out: PathBuf,
+        /// Write into an output folder that already holds files.
+        #[arg(long)]
+        force: bool,
         #[command(flatten)]
         cap: CaptureArgs,
     },
@@ -139,7 +154,29 @@ enum Command {
         /// Output folder.
         #[arg(long)]
         out: PathBuf,
+        /// Write into an output folder that already holds files.
+        #[arg(long)]
+        force: bool,
+        /// Scenario size: the shipped demo, or a small one for quick checks.
+        #[arg(long, value_enum, default_value = "default")]
+        size: DemoSizeArg,
     },
+}
+
+/// Size of the demo scenario.
+#[derive(clap::ValueEnum, Clone, Copy, Debug)]
+enum DemoSizeArg {
+    /// 32 talkers, over 20 000 captured frames.
+    Default,
+    /// A few talkers and utterances (seconds).
+    Small,
+}
+
+/// Map method on the command line.
+#[derive(clap::ValueEnum, Clone, Copy, Debug)]
+enum MapMethod {
+    Tsne,
+    Pca,
 }
 
 fn open_options(c: &CaptureArgs) -> Result<OpenOptions, Error> {
@@ -215,7 +252,36 @@ fn run(cli: Cli) -> Result<(), Error> {
             println!("  outputs in {}", probe.out.display());
             Ok(())
         }
-        Command::Map { .. } => Err(Error::NotYet("map")),
+        Command::Map {
+            capture,
+            method,
+            per_label,
+            color_by,
+            out,
+            force,
+            cap,
+        } => {
+            voxstrata::map::check_out_dir(&out, force)?;
+            let c = Capture::open(&capture, &open_options(&cap)?)?;
+            let method = match method {
+                MapMethod::Tsne => voxstrata::map::Method::Tsne,
+                MapMethod::Pca => voxstrata::map::Method::Pca,
+            };
+            let opts = voxstrata::map::MapOptions {
+                method,
+                per_label,
+                color_by,
+                ..Default::default()
+            };
+            let report = voxstrata::map::run(&c, &opts, &common, &progress)?;
+            for n in &report.notes {
+                eprintln!("note: {n}");
+            }
+            voxstrata::map::write_outputs(&report, &out, force)?;
+            print!("{}", report.summary.render());
+            println!("wrote {}", out.display());
+            Ok(())
+        }
         Command::Compare { .. } => Err(Error::NotYet("compare")),
         Command::Report {
             captures,
@@ -240,7 +306,31 @@ fn run(cli: Cli) -> Result<(), Error> {
             }
             Ok(())
         }
-        Command::Demo { .. } => Err(Error::NotYet("demo")),
+        Command::Demo { out, force, size } => {
+            let size = match size {
+                DemoSizeArg::Default => voxstrata::demo::DemoSize::Default,
+                DemoSizeArg::Small => voxstrata::demo::DemoSize::Small,
+            };
+            let opts = voxstrata::demo::DemoOptions {
+                out,
+                force,
+                seed: common.seed,
+                size,
+            };
+            let s = voxstrata::demo::run(&opts, &progress)?;
+            println!(
+                "demo: {} talkers ({} held out), {} training frames, {} frames per capture",
+                s.talkers, s.heldout_talkers, s.train_frames, s.capture_frames
+            );
+            println!(
+                "held-out (speaker-disjoint) phone accuracy: early (step {}) {:.4}, final (step {}) {:.4}",
+                s.steps.0, s.heldout_accuracy.0, s.steps.1, s.heldout_accuracy.1
+            );
+            for c in &s.captures {
+                println!("wrote {}", c.display());
+            }
+            Ok(())
+        }
     }
 }
 

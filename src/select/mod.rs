@@ -2,4 +2,5 @@
 //! pooled, sampled and split. Splits and pooling are in their own files.
 
 pub mod pool;
+pub mod sample;
 pub mod split;

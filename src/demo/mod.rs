@@ -1,0 +1,474 @@
+//! The demo scenario: a small vowel-and-fricative recogniser for a (fictional)
+//! voice-controlled greenhouse irrigation panel. Synthetic talkers ([`synth`]) speak command
+//! words built from ten vowels and three fricatives; a log-mel front end ([`features`]) feeds
+//! an MLP ([`mlp`]) that learns the phone of each frame from talkers it was trained on. Two
+//! checkpoints — early in training and at the end — are written as captures in the format of
+//! `docs/design.md`, so every analysis of voxstrata has something real to work on.
+
+pub mod features;
+pub mod mlp;
+pub mod synth;
+
+use std::fmt::Write as _;
+use std::path::{Path, PathBuf};
+
+use ndarray::{s, Array2};
+use rand::seq::SliceRandom;
+use rand::SeedableRng;
+use rand_chacha::ChaCha8Rng;
+use rayon::prelude::*;
+
+use crate::error::{Error, Result};
+use crate::output::{prepare_out_dir, write_atomic};
+use crate::Progress;
+use features::{FrontEnd, N_MEL};
+use mlp::{Adam, Mlp};
+use synth::{Group, Talker, PHONES};
+
+/// How big a demo to build.
+#[derive(Clone, Copy, Debug, Default, PartialEq, Eq)]
+pub enum DemoSize {
+    /// The shipped demo: 32 talkers, over 20 000 captured frames.
+    #[default]
+    Default,
+    /// A few talkers and utterances, for tests (seconds).
+    Small,
+}
+
+/// Options of `voxstrata demo`.
+#[derive(Clone, Debug, Default)]
+pub struct DemoOptions {
+    /// Output folder (gets `early/` and `final/`).
+    pub out: PathBuf,
+    /// Write into a non-empty folder.
+    pub force: bool,
+    /// Seed for talkers, utterances, initial weights and minibatch order.
+    pub seed: u64,
+    /// Size of the scenario.
+    pub size: DemoSize,
+}
+
+/// The knobs a size sets.
+#[derive(Clone, Copy, Debug)]
+struct Scale {
+    talkers_per_group: usize,
+    heldout_per_group: usize,
+    utts_per_talker: usize,
+    /// Utterances are taken round-robin over talkers until the capture holds this many frames.
+    capture_frames: usize,
+    epochs: usize,
+    early_steps: usize,
+    batch: usize,
+}
+
+impl DemoSize {
+    fn scale(self) -> Scale {
+        match self {
+            DemoSize::Default => Scale {
+                talkers_per_group: 8,
+                heldout_per_group: 2,
+                utts_per_talker: 30,
+                capture_frames: 20_400,
+                epochs: 12,
+                early_steps: 60,
+                batch: 128,
+            },
+            DemoSize::Small => Scale {
+                talkers_per_group: 2,
+                heldout_per_group: 1,
+                utts_per_talker: 4,
+                capture_frames: usize::MAX,
+                epochs: 3,
+                early_steps: 10,
+                batch: 64,
+            },
+        }
+    }
+}
+
+/// Context frames on each side of the centre frame in the network input.
+pub const CONTEXT: usize = 2;
+/// Hidden layer widths. Narrow enough that both shipped captures (every layer of over
+/// 20 000 frames, f16) fit in 25 MB.
+pub const HIDDEN: [usize; 5] = [48, 48, 48, 48, 48];
+
+/// What `demo` made, for the CLI to print.
+#[derive(Clone, Debug)]
+pub struct DemoSummary {
+    /// Talkers in all / held out.
+    pub talkers: usize,
+    /// Held-out talkers.
+    pub heldout_talkers: usize,
+    /// Frames in each capture.
+    pub capture_frames: usize,
+    /// Training frames.
+    pub train_frames: usize,
+    /// Minibatch steps at the early checkpoint and in all.
+    pub steps: (usize, usize),
+    /// Speaker-disjoint held-out frame accuracy of the early and final checkpoints.
+    pub heldout_accuracy: (f64, f64),
+    /// Capture folders written.
+    pub captures: Vec<PathBuf>,
+}
+
+/// Mix a seed with stream numbers (SplitMix64 finaliser; Steele et al. 2014).
+fn sub_seed(seed: u64, a: u64, b: u64) -> u64 {
+    let mut z =
+        seed ^ a.wrapping_mul(0x9E37_79B9_7F4A_7C15) ^ b.wrapping_mul(0xD1B5_4A32_D192_ED03);
+    z = (z ^ (z >> 30)).wrapping_mul(0xBF58_476D_1CE4_E5B9);
+    z = (z ^ (z >> 27)).wrapping_mul(0x94D0_49BB_1331_11EB);
+    z ^ (z >> 31)
+}
+
+/// One synthesised utterance after the front end.
+struct Utterance {
+    name: String,
+    talker: usize,
+    /// Log-mel frames (frames × 40).
+    feats: Array2<f32>,
+    /// Phone index per frame.
+    phones: Vec<usize>,
+}
+
+/// Build the demo and write `early/` and `final/` under `opts.out`.
+pub fn run(opts: &DemoOptions, progress: &Progress) -> Result<DemoSummary> {
+    prepare_out_dir(&opts.out, opts.force)?;
+    let sc = opts.size.scale();
+
+    // Talkers: the same number per group; the last `heldout_per_group` of each are never
+    // seen in training.
+    let mut talkers = Vec::new();
+    let mut heldout = Vec::new();
+    for (g, group) in Group::ALL.iter().enumerate() {
+        for k in 0..sc.talkers_per_group {
+            let mut rng = ChaCha8Rng::seed_from_u64(sub_seed(opts.seed, 1, (g * 1000 + k) as u64));
+            heldout.push(k >= sc.talkers_per_group - sc.heldout_per_group);
+            talkers.push(Talker::draw(*group, k + 1, &mut rng));
+        }
+    }
+
+    // Synthesis and front end, one utterance per task (each with its own seed).
+    let step = progress.step(
+        "synthesising speech",
+        (talkers.len() * sc.utts_per_talker) as u64,
+    );
+    let fe = FrontEnd::new();
+    let jobs: Vec<(usize, usize)> = (0..talkers.len())
+        .flat_map(|t| (0..sc.utts_per_talker).map(move |u| (t, u)))
+        .collect();
+    let utts: Vec<Utterance> = jobs
+        .par_iter()
+        .map(|&(t, u)| {
+            let talker = &talkers[t];
+            let mut rng =
+                ChaCha8Rng::seed_from_u64(sub_seed(opts.seed, 2, (t * 100_000 + u) as u64));
+            let segs = synth::draw_phones(talker, &mut rng);
+            let wave = synth::synthesise(talker, &segs, &mut rng);
+            let mel = fe.log_mel(&wave);
+            let nf = mel.len() / N_MEL;
+            let feats =
+                Array2::from_shape_vec((nf, N_MEL), mel).expect("frames × 40 by construction");
+            let phones = (0..nf)
+                .map(|i| synth::phone_at(&segs, i * features::HOP + features::WIN / 2))
+                .collect();
+            step.inc(1);
+            Utterance {
+                name: format!("{}_{:03}", talker.name, u + 1),
+                talker: t,
+                feats,
+                phones,
+            }
+        })
+        .collect();
+    drop(step);
+
+    // Normalise each channel with the mean and deviation of the training talkers' frames
+    // (one global transform: nothing per talker, so speaker cues stay in the input).
+    let train_utts: Vec<usize> = (0..utts.len())
+        .filter(|&i| !heldout[utts[i].talker])
+        .collect();
+    let test_utts: Vec<usize> = (0..utts.len())
+        .filter(|&i| heldout[utts[i].talker])
+        .collect();
+    let (mean, sd) = channel_stats(&utts, &train_utts);
+    let norm = |u: &Utterance| -> Array2<f32> {
+        let mut f = u.feats.clone();
+        for mut row in f.outer_iter_mut() {
+            for c in 0..N_MEL {
+                row[c] = (row[c] - mean[c]) / sd[c];
+            }
+        }
+        f
+    };
+    let normed: Vec<Array2<f32>> = utts.iter().map(norm).collect();
+    let stack = |ids: &[usize]| -> (Array2<f32>, Vec<usize>) { stacked(&normed, &utts, ids) };
+    let (x_train, y_train) = stack(&train_utts);
+    let (x_test, y_test) = stack(&test_utts);
+    if x_train.nrows() == 0 || x_test.nrows() == 0 {
+        return Err(Error::Internal(
+            "demo produced no training or test frames".into(),
+        ));
+    }
+
+    // The captured utterances: round-robin over talkers (utterance 1 of every talker, then
+    // utterance 2, ...) until the frame budget is met; stored grouped by talker.
+    let mut chosen = vec![false; utts.len()];
+    let mut frames = 0usize;
+    'outer: for u in 0..sc.utts_per_talker {
+        for t in 0..talkers.len() {
+            let i = t * sc.utts_per_talker + u;
+            chosen[i] = true;
+            frames += utts[i].feats.nrows();
+            if frames >= sc.capture_frames {
+                break 'outer;
+            }
+        }
+    }
+    let cap_utts: Vec<usize> = (0..utts.len()).filter(|&i| chosen[i]).collect();
+    let (x_cap, _) = stack(&cap_utts);
+    let centre: Array2<f32> = x_cap
+        .slice(s![.., CONTEXT * N_MEL..(CONTEXT + 1) * N_MEL])
+        .to_owned();
+
+    // Training: fixed minibatch order from the seed, single-threaded products.
+    let mut rng = ChaCha8Rng::seed_from_u64(sub_seed(opts.seed, 3, 0));
+    let mut sizes = vec![x_train.ncols()];
+    sizes.extend_from_slice(&HIDDEN);
+    sizes.push(PHONES.len());
+    let mut net = Mlp::new(&sizes, &mut rng);
+    let steps_per_epoch = x_train.nrows().div_ceil(sc.batch);
+    let total = sc.epochs * steps_per_epoch;
+    let early_at = sc.early_steps.min(total);
+    let step = progress.step("training", total as u64);
+    let mut early = None;
+    let mut done = 0usize;
+    let mut order: Vec<usize> = (0..x_train.nrows()).collect();
+    let mut xb = Array2::<f32>::zeros((sc.batch, x_train.ncols()));
+    for epoch in 0..sc.epochs {
+        order.shuffle(&mut rng);
+        // Step size halves over the last epochs (common practice).
+        let lr = if epoch * 3 >= sc.epochs * 2 {
+            5e-4
+        } else {
+            1.5e-3
+        };
+        let opt = Adam {
+            lr,
+            ..Adam::default()
+        };
+        for chunk in order.chunks(sc.batch) {
+            if done == early_at {
+                early = Some(checkpoint(&net, &x_cap, &centre, &x_test, &y_test));
+            }
+            let mut xb = xb.slice_mut(s![..chunk.len(), ..]);
+            let mut yb = Vec::with_capacity(chunk.len());
+            for (r, &i) in chunk.iter().enumerate() {
+                xb.row_mut(r).assign(&x_train.row(i));
+                yb.push(y_train[i]);
+            }
+            let loss = net.train_step(&xb.view(), &yb, &opt);
+            if !loss.is_finite() {
+                return Err(Error::Internal(format!(
+                    "demo training diverged at step {done} (loss {loss})"
+                )));
+            }
+            done += 1;
+            step.inc(1);
+        }
+    }
+    drop(step);
+    let early = match early {
+        Some(e) => e,
+        None => checkpoint(&net, &x_cap, &centre, &x_test, &y_test),
+    };
+    let fin = checkpoint(&net, &x_cap, &centre, &x_test, &y_test);
+
+    // frames.tsv, shared by both captures.
+    let mut tsv = String::from("utterance\tspeaker\tphone\tgroup\n");
+    for &i in &cap_utts {
+        let u = &utts[i];
+        let t = &talkers[u.talker];
+        for &p in &u.phones {
+            let _ = writeln!(
+                tsv,
+                "{}\t{}\t{}\t{}",
+                u.name,
+                t.name,
+                PHONES[p],
+                t.group.label()
+            );
+        }
+    }
+
+    let n_train_talkers = heldout.iter().filter(|h| !**h).count();
+    let heldout_names: Vec<&str> = talkers
+        .iter()
+        .zip(&heldout)
+        .filter(|(_, h)| **h)
+        .map(|(t, _)| t.name.as_str())
+        .collect();
+    let describe = |ck: &Checkpoint, name: &str, steps: usize| -> String {
+        let mut t = String::new();
+        let _ = writeln!(t, "name = \"demo-{name}\"");
+        let _ = writeln!(t, "hop_s = 0.01");
+        let _ = writeln!(t, "win_s = 0.025");
+        let _ = writeln!(t, "\n[notes]");
+        let _ = writeln!(
+            t,
+            "scenario = \"vowel-and-fricative recogniser for a voice-controlled greenhouse irrigation panel; synthetic speech (source-filter, 16 kHz) from {} talkers: adult and child, male and female\"",
+            talkers.len()
+        );
+        let _ = writeln!(
+            t,
+            "model = \"MLP {}-{}-{} (ReLU), softmax over {} phones (10 vowels, s, sh, f, sil); Adam, minibatch {}, seed {}\"",
+            sizes[0],
+            HIDDEN.iter().map(|h| h.to_string()).collect::<Vec<_>>().join("-"),
+            PHONES.len(),
+            PHONES.len(),
+            sc.batch,
+            opts.seed
+        );
+        let _ = writeln!(
+            t,
+            "input = \"40 log-mel channels (25 ms Hamming, 10 ms hop, 512-point FFT magnitude), normalised with training-talker mean and deviation, stacked over +-{CONTEXT} frames\""
+        );
+        let _ = writeln!(t, "layer_0 = \"the centre 40-d normalised log-mel frame of the network input (the stacked input is this frame and its neighbours)\"");
+        let _ = writeln!(
+            t,
+            "layers = \"layer k (1-{}) is hidden layer k after ReLU\"",
+            HIDDEN.len()
+        );
+        let _ = writeln!(t, "checkpoint = \"{name}\"");
+        let _ = writeln!(t, "training_steps = {steps}");
+        let _ = writeln!(t, "total_steps = {total}");
+        let _ = writeln!(t, "training_talkers = {n_train_talkers}");
+        let _ = writeln!(t, "heldout_talkers = \"{}\"", heldout_names.join(" "));
+        let _ = writeln!(t, "heldout_frames = {}", y_test.len());
+        let _ = writeln!(t, "heldout_accuracy = {:.4}", ck.accuracy);
+        t
+    };
+
+    // Everything is computed; now write.
+    let mut captures = Vec::new();
+    for (name, ck, steps) in [("early", &early, early_at), ("final", &fin, total)] {
+        let dir = opts.out.join(name);
+        for (l, layer) in ck.layers.iter().enumerate() {
+            write_npy_f16(&dir.join(format!("layer_{l:02}.npy")), layer)?;
+        }
+        write_atomic(&dir.join("frames.tsv"), tsv.as_bytes())?;
+        write_atomic(
+            &dir.join("capture.toml"),
+            describe(ck, name, steps).as_bytes(),
+        )?;
+        captures.push(dir);
+    }
+    Ok(DemoSummary {
+        talkers: talkers.len(),
+        heldout_talkers: heldout_names.len(),
+        capture_frames: x_cap.nrows(),
+        train_frames: x_train.nrows(),
+        steps: (early_at, total),
+        heldout_accuracy: (early.accuracy, fin.accuracy),
+        captures,
+    })
+}
+
+/// One checkpoint's capture layers (f16 bits, frames × dim) and held-out accuracy.
+struct Checkpoint {
+    layers: Vec<(usize, usize, Vec<u16>)>,
+    accuracy: f64,
+}
+
+fn to_f16(a: &Array2<f32>) -> (usize, usize, Vec<u16>) {
+    (
+        a.nrows(),
+        a.ncols(),
+        a.iter()
+            .map(|&v| half::f16::from_f32(v).to_bits())
+            .collect(),
+    )
+}
+
+fn checkpoint(
+    net: &Mlp,
+    x_cap: &Array2<f32>,
+    centre: &Array2<f32>,
+    x_test: &Array2<f32>,
+    y_test: &[usize],
+) -> Checkpoint {
+    let outs = net.forward_all(&x_cap.view());
+    let mut layers = vec![to_f16(centre)];
+    layers.extend(outs[..net.n_hidden()].iter().map(to_f16));
+    let pred = net.predict(&x_test.view());
+    let correct = pred.iter().zip(y_test).filter(|(a, b)| a == b).count();
+    Checkpoint {
+        layers,
+        accuracy: correct as f64 / y_test.len().max(1) as f64,
+    }
+}
+
+/// Per-channel mean and standard deviation over the frames of `ids`.
+fn channel_stats(utts: &[Utterance], ids: &[usize]) -> (Vec<f32>, Vec<f32>) {
+    let mut sum = vec![0f64; N_MEL];
+    let mut sq = vec![0f64; N_MEL];
+    let mut n = 0f64;
+    for &i in ids {
+        for row in utts[i].feats.outer_iter() {
+            for c in 0..N_MEL {
+                sum[c] += row[c] as f64;
+                sq[c] += (row[c] as f64).powi(2);
+            }
+            n += 1.0;
+        }
+    }
+    let n = n.max(1.0);
+    let mean: Vec<f32> = sum.iter().map(|s| (s / n) as f32).collect();
+    let sd = (0..N_MEL)
+        .map(|c| ((sq[c] / n - (sum[c] / n).powi(2)).max(1e-6)).sqrt() as f32)
+        .collect();
+    (mean, sd)
+}
+
+/// Network inputs of the utterances `ids`: each frame with ±CONTEXT neighbours (edge frames
+/// repeated), and the phone labels.
+fn stacked(normed: &[Array2<f32>], utts: &[Utterance], ids: &[usize]) -> (Array2<f32>, Vec<usize>) {
+    let n: usize = ids.iter().map(|&i| normed[i].nrows()).sum();
+    let width = (2 * CONTEXT + 1) * N_MEL;
+    let mut x = Array2::<f32>::zeros((n, width));
+    let mut y = Vec::with_capacity(n);
+    let mut r = 0;
+    for &i in ids {
+        let f = &normed[i];
+        let nf = f.nrows();
+        for t in 0..nf {
+            for k in 0..=2 * CONTEXT {
+                let src = (t + k).saturating_sub(CONTEXT).min(nf - 1);
+                x.slice_mut(s![r, k * N_MEL..(k + 1) * N_MEL])
+                    .assign(&f.row(src));
+            }
+            y.push(utts[i].phones[t]);
+            r += 1;
+        }
+    }
+    (x, y)
+}
+
+/// Write f16 values as a C-order `.npy` (format 1.0, descr `<f2`; NumPy's NEP 1 layout:
+/// magic, version, little-endian header length, header padded to a multiple of 64 bytes).
+pub fn write_npy_f16(path: &Path, layer: &(usize, usize, Vec<u16>)) -> Result<()> {
+    let (rows, cols, bits) = layer;
+    let mut header =
+        format!("{{'descr': '<f2', 'fortran_order': False, 'shape': ({rows}, {cols}), }}");
+    let pad = 64 - (10 + header.len() + 1) % 64;
+    header.push_str(&" ".repeat(pad % 64));
+    header.push('\n');
+    let mut buf = Vec::with_capacity(10 + header.len() + bits.len() * 2);
+    buf.extend_from_slice(b"\x93NUMPY\x01\x00");
+    buf.extend_from_slice(&(header.len() as u16).to_le_bytes());
+    buf.extend_from_slice(header.as_bytes());
+    for b in bits {
+        buf.extend_from_slice(&b.to_le_bytes());
+    }
+    write_atomic(path, &buf)?;
+    Ok(())
+}
