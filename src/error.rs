@@ -2,6 +2,7 @@
 //! can fix it), 1 for internal failure.
 
 use crate::capture::CaptureError;
+use crate::compare::CompareError;
 use crate::map::MapError;
 use crate::output::OutputError;
 use crate::plot::PlotError;
@@ -14,6 +15,9 @@ pub enum Error {
     /// Reading a capture failed.
     #[error(transparent)]
     Capture(#[from] CaptureError),
+    /// Comparing two captures failed.
+    #[error(transparent)]
+    Compare(#[from] CompareError),
     /// Writing outputs failed.
     #[error(transparent)]
     Output(#[from] OutputError),
@@ -46,6 +50,7 @@ impl Error {
         match self {
             Error::Capture(_) | Error::Input(_) | Error::Map(_) => 2,
             Error::Output(OutputError::Refused { .. }) => 2,
+            Error::Compare(_) => 2,
             Error::Report(e) if e.is_input() => 2,
             Error::Report(_) => 1,
             Error::Probe(ProbeError::Input(_)) => 2,

@@ -5,6 +5,7 @@
 //! ([`plot`]) and the report. See `docs/design.md`.
 
 pub mod capture;
+pub mod compare;
 pub mod demo;
 pub mod error;
 pub mod inspect;
@@ -17,6 +18,7 @@ pub mod progress;
 pub mod purity;
 pub mod report;
 pub mod select;
+pub mod stats;
 
 pub use capture::{Capture, CaptureError, OpenOptions};
 pub use error::{Error, Result};

@@ -84,6 +84,58 @@ struct ProbeArgs {
     force: bool,
 }
 
+#[derive(Args, Debug, Clone)]
+struct CompareArgs {
+    /// Output folder.
+    #[arg(long, default_value = "voxstrata-compare")]
+    out: PathBuf,
+    /// Write into an output folder that already holds files.
+    #[arg(long)]
+    force: bool,
+    /// Pair frames row by row, or by utterance and frame index when the orders differ.
+    #[arg(long = "match-by", value_enum, default_value = "row")]
+    match_by: MatchByArg,
+    /// Use at most this many paired frames (seeded sample).
+    #[arg(long = "max-frames", value_name = "N")]
+    max_frames: Option<usize>,
+    /// CKA kernel (rbf uses a subsample, 2000 frames unless --max-frames says otherwise).
+    #[arg(long, value_enum, default_value = "linear")]
+    kernel: KernelArg,
+    /// HSIC estimator: full, or unbiased minibatch estimates for very many frames.
+    #[arg(long, value_enum, default_value = "full")]
+    hsic: HsicArg,
+    /// Frames per minibatch for --hsic minibatch.
+    #[arg(long = "batch-size", default_value_t = 512)]
+    batch_size: usize,
+    /// Label task for probe deltas (repeatable; default: phone and speaker).
+    #[arg(long = "task", value_name = "COLUMN")]
+    tasks: Vec<String>,
+    /// Skip the probe deltas (CKA only).
+    #[arg(long = "no-probe")]
+    no_probe: bool,
+    /// Bootstrap resamples for the probe-delta intervals.
+    #[arg(long, default_value_t = 1000)]
+    bootstrap: usize,
+}
+
+#[derive(clap::ValueEnum, Debug, Clone, Copy)]
+enum MatchByArg {
+    Row,
+    Utterance,
+}
+
+#[derive(clap::ValueEnum, Debug, Clone, Copy)]
+enum KernelArg {
+    Linear,
+    Rbf,
+}
+
+#[derive(clap::ValueEnum, Debug, Clone, Copy)]
+enum HsicArg {
+    Full,
+    Minibatch,
+}
+
 #[derive(Subcommand, Debug)]
 enum Command {
     /// Summarise a capture: layers, frames, speakers, label tasks, warnings.
@@ -135,6 +187,8 @@ enum Command {
         capture_b: PathBuf,
         #[command(flatten)]
         cap: CaptureArgs,
+        #[command(flatten)]
+        args: CompareArgs,
     },
     /// Run everything and write one HTML report.
     Report {
@@ -282,7 +336,46 @@ fn run(cli: Cli) -> Result<(), Error> {
             println!("wrote {}", out.display());
             Ok(())
         }
-        Command::Compare { .. } => Err(Error::NotYet("compare")),
+        Command::Compare {
+            capture_a,
+            capture_b,
+            cap,
+            args,
+        } => {
+            use voxstrata::compare::{self, CompareOptions, Estimator, Kernel, MatchBy};
+            let opts = CompareOptions {
+                match_by: match args.match_by {
+                    MatchByArg::Row => MatchBy::Row,
+                    MatchByArg::Utterance => MatchBy::Utterance,
+                },
+                max_frames: args.max_frames,
+                kernel: match args.kernel {
+                    KernelArg::Linear => Kernel::Linear,
+                    KernelArg::Rbf => Kernel::Rbf,
+                },
+                estimator: match args.hsic {
+                    HsicArg::Full => Estimator::Full,
+                    HsicArg::Minibatch => Estimator::Minibatch,
+                },
+                batch_size: args.batch_size,
+                probe: !args.no_probe,
+                tasks: args.tasks,
+                bootstrap: args.bootstrap,
+                ..Default::default()
+            };
+            // Refuse an unusable output folder before any work (nothing is created here).
+            if args.out.exists() {
+                voxstrata::output::prepare_out_dir(&args.out, args.force)?;
+            }
+            let oo = open_options(&cap)?;
+            let a = Capture::open(&capture_a, &oo)?;
+            let b = Capture::open(&capture_b, &oo)?;
+            let report = compare::run(&a, &b, &opts, &common, &progress)?;
+            voxstrata::output::prepare_out_dir(&args.out, args.force)?;
+            compare::write_outputs(&report, &args.out)?;
+            print!("{}", compare::summary_text(&report));
+            Ok(())
+        }
         Command::Report {
             captures,
             out,

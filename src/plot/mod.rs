@@ -3,6 +3,7 @@
 //! our own sequential ramp for heatmaps, and a helper that draws one figure to both PNG and
 //! SVG. Figures themselves live beside this file, one module per analysis.
 
+pub mod compare;
 pub mod map;
 pub mod palette;
 pub mod probe;
