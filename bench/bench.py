@@ -15,6 +15,7 @@ import os
 import platform
 import re
 import shutil
+import signal
 import subprocess
 import sys
 import tempfile
@@ -35,6 +36,9 @@ SEED = gen_data.SEED
 REF_ENV = {k: v for k, v in os.environ.items() if k not in ("OPENBLAS_CORETYPE", "OPENBLAS_L2_SIZE")}
 
 MIB = 1024 * 1024
+# Whole commands measured against a time target are stopped at STOP x the target, so one slow
+# command cannot hold up the run; the row then says so.
+STOP = 4
 
 
 def log(msg):
@@ -64,14 +68,31 @@ class Run:
         return self
 
 
+class Stopped(Exception):
+    """A command ran past its time limit and was stopped."""
+
+    def __init__(self, what, limit):
+        super().__init__(f"{what} stopped after {limit:.0f} s")
+        self.limit = limit
+
+
 def timed(cmd, env=None, timeout=1800):
-    """Run cmd under /usr/bin/time -v; wall time, peak RSS, stdout, stderr."""
+    """Run cmd under /usr/bin/time -v; wall time, peak RSS, stdout, stderr. A command still
+    running after `timeout` seconds is stopped (its whole process group) and raises Stopped."""
     with tempfile.NamedTemporaryFile("r", suffix=".time", delete=False) as tf:
         tpath = tf.name
     full = ["/usr/bin/time", "-v", "-o", tpath] + [str(c) for c in cmd]
     log("run: " + " ".join(str(c) for c in cmd))
     t = time.perf_counter()
-    p = subprocess.run(full, cwd=ROOT, env=env, capture_output=True, text=True, timeout=timeout)
+    p = subprocess.Popen(full, cwd=ROOT, env=env, stdout=subprocess.PIPE, stderr=subprocess.PIPE,
+                         text=True, start_new_session=True)
+    try:
+        out, err = p.communicate(timeout=timeout)
+    except subprocess.TimeoutExpired:
+        os.killpg(p.pid, signal.SIGKILL)
+        p.communicate()
+        os.unlink(tpath)
+        raise Stopped(os.path.basename(str(cmd[0])) + " " + str(cmd[1] if len(cmd) > 1 else ""), timeout)
     wall = time.perf_counter() - t
     rss = None
     with open(tpath) as f:
@@ -79,7 +100,7 @@ def timed(cmd, env=None, timeout=1800):
         if m:
             rss = int(m.group(1))
     os.unlink(tpath)
-    return Run(p.returncode, wall, rss, p.stdout, p.stderr)
+    return Run(p.returncode, wall, rss, out, err)
 
 
 def ref(*args, timeout=1800):
@@ -335,7 +356,7 @@ def demo_frame_count(cap):
 def row_demo_demo(quick):
     out = os.path.join(OUT, "demo")
     shutil.rmtree(out, ignore_errors=True)
-    ours = timed([BIN, "--quiet", "demo", "--out", out] + (["--size", "small"] if quick else [])).check("demo")
+    ours = timed([BIN, "--quiet", "demo", "--out", out] + (["--size", "small"] if quick else []), timeout=STOP * 120).check("demo")
     acc = [l for l in ours.out.splitlines() if "accuracy" in l]
     return row(
         "`demo` generation (synthesis, features, model training, two captures)" + (", small size" if quick else ""),
@@ -365,7 +386,7 @@ def row_probe_full(quick):
     cap = os.path.join(root, "final")
     mib, nl, shape, dtype = layer_f32_mib(cap)
     out = os.path.join(OUT, "probe_demo")
-    ours = timed([BIN, "--threads", "2", "--quiet", "probe", cap, "--out", out, "--force"]).check("probe")
+    ours = timed([BIN, "--threads", "2", "--quiet", "probe", cap, "--out", out, "--force"], timeout=STOP * 30).check("probe")
     with open(os.path.join(out, "probe.json")) as f:
         recs = json.load(f)["records"]
     best = {}
@@ -391,7 +412,7 @@ def row_map_demo(quick):
     root = demo_root(quick)
     cap = os.path.join(root, "final")
     out = os.path.join(OUT, "map_demo")
-    ours = timed([BIN, "--threads", "2", "--quiet", "map", cap, "--out", out, "--force"]).check("map")
+    ours = timed([BIN, "--threads", "2", "--quiet", "map", cap, "--out", out, "--force"], timeout=STOP * 60).check("map")
     return row(
         f"`map` on {os.path.relpath(cap, ROOT)} (t-SNE, all layers, both colourings)",
         reference="(none)",
@@ -410,7 +431,7 @@ def row_report_demo(quick):
     shutil.rmtree(out, ignore_errors=True)
     shipped = root == os.path.join(ROOT, "demo_activations")
     caps = [] if shipped else [os.path.join(root, "early"), os.path.join(root, "final")]
-    ours = timed([BIN, "--threads", "2", "--quiet", "report"] + caps + ["--out", out]).check("report")
+    ours = timed([BIN, "--threads", "2", "--quiet", "report"] + caps + ["--out", out], timeout=STOP * 90).check("report")
     size = os.path.getsize(os.path.join(out, "index.html")) / MIB
     ok = ours.wall < 90 and ours.rss_mib < 1024
     return row(
@@ -423,6 +444,14 @@ def row_report_demo(quick):
         met=demo_met(quick, ok, f"{ours.wall:.1f} s, {ours.rss_mib:.0f} MiB"),
         notes="wall time of the command, --threads 2",
     )
+
+
+STOPPED_NAMES = {
+    "row_demo_demo": "`demo` generation",
+    "row_probe_full": "full `probe` on the demo's final capture",
+    "row_map_demo": "`map` on the demo's final capture",
+    "row_report_demo": "`report` on the demo",
+}
 
 
 def demo_met(quick, ok, figure):
@@ -534,6 +563,10 @@ def main():
     def attempt(num, fn, *args):
         try:
             return fn(*args)
+        except Stopped as e:
+            log(f"row {num}: {e}")
+            return row(STOPPED_NAMES.get(fn.__name__, fn.__name__), ours_s=None, met=f"NO (stopped after {e.limit:.0f} s)",
+                       notes=f"{e}: the command was still running at {STOP}x its time target and was stopped")
         except Exception as e:  # a failed row is reported, never silently dropped
             log(f"row {num} failed: {e}")
             return row(f"row {num}", met="FAILED", notes=f"failed: {str(e).strip().splitlines()[0][:300]}")
