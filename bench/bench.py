@@ -92,7 +92,8 @@ def timed(cmd, env=None, timeout=1800):
         os.killpg(p.pid, signal.SIGKILL)
         p.communicate()
         os.unlink(tpath)
-        raise Stopped(os.path.basename(str(cmd[0])) + " " + str(cmd[1] if len(cmd) > 1 else ""), timeout)
+        sub = next((str(c) for c in cmd[1:] if not str(c).startswith("-") and not str(c).isdigit()), "")
+        raise Stopped(f"{os.path.basename(str(cmd[0]))} {sub}".strip(), timeout)
     wall = time.perf_counter() - t
     rss = None
     with open(tpath) as f:
@@ -447,10 +448,10 @@ def row_report_demo(quick):
 
 
 STOPPED_NAMES = {
-    "row_demo_demo": "`demo` generation",
-    "row_probe_full": "full `probe` on the demo's final capture",
-    "row_map_demo": "`map` on the demo's final capture",
-    "row_report_demo": "`report` on the demo",
+    "row_demo_demo": ("`demo` generation", "< 2 min"),
+    "row_probe_full": ("full `probe` on the demo's final capture", "< 30 s on 2 cores"),
+    "row_map_demo": ("`map` on the demo's final capture", "< 60 s"),
+    "row_report_demo": ("`report` on the demo", "< 90 s, peak < 1 GiB"),
 }
 
 
@@ -565,7 +566,8 @@ def main():
             return fn(*args)
         except Stopped as e:
             log(f"row {num}: {e}")
-            return row(STOPPED_NAMES.get(fn.__name__, fn.__name__), ours_s=None, met=f"NO (stopped after {e.limit:.0f} s)",
+            name, target = STOPPED_NAMES.get(fn.__name__, (fn.__name__, ""))
+            return row(name, target=target, met=f"NO (stopped after {e.limit:.0f} s)",
                        notes=f"{e}: the command was still running at {STOP}x its time target and was stopped")
         except Exception as e:  # a failed row is reported, never silently dropped
             log(f"row {num} failed: {e}")
