@@ -427,12 +427,12 @@ pub fn headline_svg(sec: &CaptureSection) -> Option<(String, String)> {
                     c.layer
                 ),
                 CrossKind::SpeakerBelowHalf => format!(
-                    "Phone never overtakes speaker here; the dashed vertical line marks layer {}, where speaker {what} first falls below the middle of its range after its peak.",
+                    "The phone and speaker curves do not cross here; the dashed vertical line marks layer {}, where speaker {what} first falls below the middle of its range after its peak.",
                     c.layer
                 ),
             }
         }
-        None => "No crossover: phone never overtakes speaker and speaker never falls below half its range.".to_string(),
+        None => "No crossover: the phone and speaker curves do not cross and speaker never falls below half its range.".to_string(),
     };
     // Legend on the right.
     let lx = ml + pw + 18.0;
