@@ -165,7 +165,7 @@ enum Command {
         #[arg(long, value_enum, default_value = "tsne")]
         method: MapMethod,
         /// Frames drawn per speaker × phone cell (all of a cell's frames when it has fewer).
-        #[arg(long = "per-label", default_value_t = 20)]
+        #[arg(long = "per-label", default_value_t = 10)]
         per_label: usize,
         /// Also colour the maps by this label (repeatable); speaker and phone are always drawn.
         #[arg(long = "color-by", value_name = "LABEL")]

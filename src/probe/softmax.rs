@@ -13,6 +13,7 @@ use ndarray::{s, Array2, ArrayView2, Axis};
 use rayon::prelude::*;
 
 use super::lbfgs::{minimize, LbfgsOptions};
+use crate::linalg::exp_f32;
 
 /// Rows per block of the fused objective/gradient pass.
 const CHUNK: usize = 1024;
@@ -141,23 +142,26 @@ pub fn cross_entropy_grad(
             ndarray::linalg::general_mat_mul(1.0, &xb, &w, 0.0, &mut z);
             let mut ce = 0f64;
             let mut gb = vec![0f64; k];
-            for (mut row, &yi) in z.outer_iter_mut().zip(&y[lo..hi]) {
+            // z is freshly allocated in standard layout, so its rows are contiguous
+            let zs = z.as_slice_mut().expect("standard layout");
+            for (row, &yi) in zs.chunks_exact_mut(k).zip(&y[lo..hi]) {
                 let mut m = f32::NEG_INFINITY;
                 for (v, bj) in row.iter_mut().zip(&b) {
                     *v += bj;
                     m = m.max(*v);
                 }
+                let zy = row[yi as usize];
                 let mut sum = 0f64;
-                for v in row.iter() {
-                    sum += ((*v - m) as f64).exp();
+                for v in row.iter_mut() {
+                    *v = exp_f32(*v - m);
+                    sum += *v as f64;
                 }
-                let lse = m as f64 + sum.ln();
-                ce += lse - row[yi as usize] as f64;
+                ce += m as f64 + sum.ln() - zy as f64;
+                let inv = (1.0 / sum) as f32;
                 for (j, v) in row.iter_mut().enumerate() {
-                    let p = ((*v as f64) - lse).exp();
-                    let gv = p - if j == yi as usize { 1.0 } else { 0.0 };
-                    gb[j] += gv;
-                    *v = gv as f32;
+                    let gv = *v * inv - (j == yi as usize) as u8 as f32;
+                    gb[j] += gv as f64;
+                    *v = gv;
                 }
             }
             let mut gw = Array2::<f32>::zeros((d, k));
@@ -234,11 +238,12 @@ impl SoftmaxModel {
                         m = m.max(*v);
                     }
                     let mut sum = 0f64;
-                    for v in row.iter() {
-                        sum += ((*v - m) as f64).exp();
+                    for v in row.iter_mut() {
+                        *v = exp_f32(*v - m);
+                        sum += *v as f64;
                     }
-                    let lse = m as f64 + sum.ln();
-                    row.mapv_inplace(|v| ((v as f64) - lse).exp() as f32);
+                    let inv = (1.0 / sum) as f32;
+                    row.mapv_inplace(|v| v * inv);
                 }
             });
         z
