@@ -67,6 +67,9 @@ struct ProbeArgs {
     /// Largest number of training items per fit (stratified subsample; 0: all).
     #[arg(long = "max-train-frames", default_value_t = 20_000)]
     max_train_frames: usize,
+    /// Largest number of test items per fold (stratified subsample; 0: all).
+    #[arg(long = "max-test-frames", default_value_t = 50_000)]
+    max_test_frames: usize,
     /// Bootstrap resamples for the 95% interval.
     #[arg(long, default_value_t = 1000)]
     bootstrap: usize,
@@ -289,6 +292,7 @@ fn run(cli: Cli) -> Result<(), Error> {
                 test_fraction: probe.test_fraction,
                 folds: probe.folds,
                 max_train_frames: probe.max_train_frames,
+                max_test_frames: probe.max_test_frames,
                 bootstrap: probe.bootstrap,
                 control: !probe.no_control,
                 strict: probe.strict,

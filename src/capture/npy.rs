@@ -607,10 +607,21 @@ impl NpyFile {
             let start = self.header.data_offset + lo * sz;
             let len = (hi - lo) * sz;
             if len > 0 && start + len <= m.len() {
+                // A page fault maps the pages around the faulting one as well (Linux's
+                // fault-around, 64 KiB by default), so a row of a few KiB leaves a larger
+                // window resident: release the whole aligned window the row lies in.
+                const WINDOW: usize = 64 * 1024;
+                let base = m.as_ptr() as usize;
+                let a = ((base + start) / WINDOW * WINDOW).max(base);
+                let b = (base + start + len).div_ceil(WINDOW) * WINDOW;
+                let b = b.min(base + m.len());
                 // SAFETY: as in `release`: read-only file mapping, refilled from the file.
                 unsafe {
-                    let _ =
-                        m.unchecked_advise_range(memmap2::UncheckedAdvice::DontNeed, start, len);
+                    let _ = m.unchecked_advise_range(
+                        memmap2::UncheckedAdvice::DontNeed,
+                        a - base,
+                        b - a,
+                    );
                 }
             }
         }

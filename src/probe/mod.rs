@@ -59,6 +59,9 @@ pub struct ProbeOptions {
     pub folds: usize,
     /// Largest number of training items per fit (stratified subsample; 0: all).
     pub max_train_frames: usize,
+    /// Largest number of test items per fold (stratified subsample, class shares kept; 0: all).
+    /// Bounds memory on very large captures; the interval still resamples test speakers.
+    pub max_test_frames: usize,
     /// Penalty grid as α = 1/(C·n), strongest first; C = 1/(α·n) for n training items.
     pub alphas: Vec<f64>,
     /// Share of training groups held out to choose the penalty.
@@ -85,6 +88,7 @@ impl Default for ProbeOptions {
             test_fraction: 0.25,
             folds: 1,
             max_train_frames: 20_000,
+            max_test_frames: 50_000,
             // 1e-4 .. 1e-1 per item: from a nearly unpenalised fit to a strong one (common
             // practice for probes; the grid spans the usual C = 0.01..10 at n ~ 1 000..10 000).
             alphas: vec![1e-1, 1e-2, 1e-3, 1e-4],
@@ -685,9 +689,23 @@ fn plan_tasks(
                     opts.max_train_frames,
                     mix(seed, 200 + (ti * 1000 + fi) as u64),
                 ),
-                test: f.test.clone(),
+                test: stratified_subsample(
+                    &f.test,
+                    &items.label,
+                    opts.max_test_frames,
+                    mix(seed, 250 + (ti * 1000 + fi) as u64),
+                ),
             })
             .collect();
+        let full_test: usize = sp.folds.iter().map(|f| f.test.len()).sum();
+        let kept_test: usize = folds.iter().map(|f| f.test.len()).sum();
+        if kept_test < full_test {
+            notes.push(format!(
+                "{name}: test items capped by --max-test-frames {}: {kept_test} of {full_test} \
+                 (stratified by class)",
+                opts.max_test_frames
+            ));
+        }
         let check = split::check_leakage(
             sp.kind,
             sp.every_speaker_both_sides,
@@ -779,13 +797,36 @@ pub fn run(
     let mut notes = Vec::new();
     let plans = plan_tasks(cap, opts, common.seed, &mut notes)?;
     let idx = UttIndex::new(&cap.frames);
+    // Only the frames the folds use are read from each layer (a capped training set on a large
+    // capture touches a small share of its rows).
+    let n_frames = cap.frames.n_frames();
+    let mut mask = vec![false; n_frames];
+    for p in &plans {
+        for f in &p.folds {
+            for which in [&f.train, &f.test] {
+                pool::mark_frames(&p.items, which, &idx, &cap.frames, opts.context, &mut mask);
+            }
+        }
+    }
+    let needed: Vec<usize> = (0..n_frames).filter(|&f| mask[f]).collect();
+    drop(mask);
+    let row_of: Option<Vec<u32>> = (needed.len() < n_frames).then(|| {
+        let mut r = vec![u32::MAX; n_frames];
+        for (k, &f) in needed.iter().enumerate() {
+            r[f] = k as u32;
+        }
+        r
+    });
     let step = progress.step("probing layers", (layers.len() * plans.len()) as u64);
     let mut records = Vec::new();
     let mut confusions: Vec<Vec<Vec<Vec<u64>>>> = vec![Vec::new(); plans.len()];
     for &li in &layers {
         let layer_id = cap.layers[li].id;
         step.message(&format!("layer {layer_id}"));
-        let x = cap.read_layer(li)?;
+        let x = match &row_of {
+            Some(_) => cap.read_layer_rows(li, &needed)?,
+            None => cap.read_layer(li)?,
+        };
         for (ti, p) in plans.iter().enumerate() {
             let k = p.classes.len();
             let (mut accs, mut f1s, mut bals, mut majs, mut ctrls, mut cs) =
@@ -798,6 +839,7 @@ pub fn run(
             for (fi, f) in p.folds.iter().enumerate() {
                 let xtr = pool::features(
                     &x.view(),
+                    row_of.as_deref(),
                     &p.items,
                     &f.train,
                     &idx,
@@ -806,6 +848,7 @@ pub fn run(
                 );
                 let xte = pool::features(
                     &x.view(),
+                    row_of.as_deref(),
                     &p.items,
                     &f.test,
                     &idx,

@@ -227,10 +227,36 @@ fn class_name(t: &FrameTable, task: &str, c: u32) -> String {
         .unwrap_or_else(|| c.to_string())
 }
 
+/// Mark in `mask` (one entry per frame) every frame [`features`] reads for the chosen items:
+/// their member frames and the `context` neighbours of each.
+pub fn mark_frames(
+    items: &Items,
+    which: &[usize],
+    idx: &UttIndex,
+    t: &FrameTable,
+    context: usize,
+    mask: &mut [bool],
+) {
+    for &i in which {
+        for &f in items.members(i) {
+            let list = &idx.frames[t.frame_utt[f] as usize];
+            let p = idx.place[f];
+            let lo = p.saturating_sub(context);
+            let hi = (p + context).min(list.len() - 1);
+            for &g in &list[lo..=hi] {
+                mask[g] = true;
+            }
+        }
+    }
+}
+
 /// Feature rows of the chosen items: the mean over each item's frames of the frame's vector,
 /// with `context` frames either side stacked beside it (dimension `dim × (2·context + 1)`).
+/// `layer` holds one row per frame, or, with `row_of`, only some frames: frame `f` is then row
+/// `row_of[f]` (every frame [`mark_frames`] marks must have one).
 pub fn features(
     layer: &ArrayView2<f32>,
+    row_of: Option<&[u32]>,
     items: &Items,
     which: &[usize],
     idx: &UttIndex,
@@ -254,7 +280,10 @@ pub fn features(
                 for j in 0..(2 * context + 1) {
                     let q = (p + j as isize - context as isize).clamp(0, list.len() as isize - 1)
                         as usize;
-                    let src = layer.row(list[q]);
+                    let src = layer.row(match row_of {
+                        Some(r) => r[list[q]] as usize,
+                        None => list[q],
+                    });
                     for (o, &v) in row[j * d..(j + 1) * d].iter_mut().zip(src.iter()) {
                         *o += v;
                     }
@@ -266,4 +295,62 @@ pub fn features(
             }
         });
     out
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::capture::labels::LabelTask;
+
+    /// Two utterances of 6 and 4 frames, stored interleaved, phones in runs.
+    fn table() -> FrameTable {
+        let frame_utt = vec![0, 1, 0, 1, 0, 1, 0, 1, 0, 0];
+        let frame_pos = vec![0, 0, 1, 1, 2, 2, 3, 3, 4, 5];
+        let codes = vec![0, 1, 0, 1, 1, 0, 1, 0, 2, 2];
+        FrameTable {
+            utterances: vec!["u0".into(), "u1".into()],
+            utt_speaker: vec![0, 1],
+            speakers: vec!["s0".into(), "s1".into()],
+            frame_utt,
+            frame_pos,
+            tasks: vec![LabelTask {
+                name: "phone".into(),
+                classes: vec!["a".into(), "b".into(), "c".into()],
+                codes,
+            }],
+        }
+    }
+
+    #[test]
+    fn features_from_marked_rows_equal_features_from_the_whole_layer() {
+        let t = table();
+        let idx = UttIndex::new(&t);
+        let layer = Array2::from_shape_fn((10, 3), |(f, c)| (f * 10 + c) as f32);
+        for pooling in [Pooling::Frame, Pooling::Segment] {
+            let items = pool_items(&t, &idx, &t.tasks[0].codes, pooling, "phone").unwrap();
+            let which: Vec<usize> = (0..items.len()).filter(|i| i % 2 == 1).collect();
+            for context in [0, 1, 2] {
+                let mut mask = vec![false; 10];
+                mark_frames(&items, &which, &idx, &t, context, &mut mask);
+                let needed: Vec<usize> = (0..10).filter(|&f| mask[f]).collect();
+                assert!(needed.len() < 10 || context > 0);
+                let mut row_of = vec![u32::MAX; 10];
+                for (k, &f) in needed.iter().enumerate() {
+                    row_of[f] = k as u32;
+                }
+                let part = layer.select(ndarray::Axis(0), &needed);
+                let full = features(&layer.view(), None, &items, &which, &idx, &t, context);
+                let some = features(
+                    &part.view(),
+                    Some(&row_of),
+                    &items,
+                    &which,
+                    &idx,
+                    &t,
+                    context,
+                );
+                assert_eq!(full, some, "{pooling:?}, context {context}");
+            }
+        }
+    }
 }
