@@ -276,12 +276,12 @@ fn demo_dir() -> PathBuf {
     Path::new(env!("CARGO_MANIFEST_DIR")).join("demo_activations")
 }
 
-/// On the shipped demo, training moved the top hidden layer further from its early state than
-/// the first hidden layer (1 - CKA at the top layer > at layer 1). Measured at seed 0:
-/// layer 1 0.168, 2 0.229, 3 0.171, 4 0.160, 5 0.204 — the change is not monotone in depth
-/// (layer 2 changed most), so only the top-versus-first contrast is asserted.
+/// On the shipped demo, training moved the upper layers furthest from their early state: the
+/// top hidden layer has the lowest matching-layer CKA (issue claim: "the upper layers changed
+/// most"). Measured at seed 0 on all frames, 1 - CKA: layer 1 0.185, 2 0.217, 3 0.226,
+/// 4 0.231, 5 0.306 (the demo trains with layer-wise step decay 0.7).
 #[test]
-fn demo_final_against_early_changes_top_layer_more_than_first() {
+fn demo_final_against_early_changes_the_top_layer_most() {
     let (early, fin) = (demo_dir().join("early"), demo_dir().join("final"));
     if !early.is_dir() || !fin.is_dir() {
         println!(
@@ -315,11 +315,20 @@ fn demo_final_against_early_changes_top_layer_more_than_first() {
     let change = |l: u64| 1.0 - cka(&j, l, l);
     // Layer 0 is the input features, identical in both checkpoints.
     assert!(change(0) < 1e-6, "input layer changed: {}", change(0));
+    let changes: Vec<String> = layers
+        .iter()
+        .map(|&l| format!("{l}: {:.3}", change(l)))
+        .collect();
+    for &l in layers.iter().filter(|&&l| l != top) {
+        assert!(
+            change(top) > change(l),
+            "top layer {top} is not the most changed: {changes:?}"
+        );
+    }
+    // upper half against lower half of the hidden layers
     assert!(
-        change(top) > change(1),
-        "top layer {top}: {} vs layer 1: {}",
-        change(top),
-        change(1)
+        change(top) + change(top - 1) > change(1) + change(2),
+        "upper layers changed less than lower ones: {changes:?}"
     );
 }
 

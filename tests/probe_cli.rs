@@ -595,10 +595,17 @@ fn demo_final_capture_shows_the_expected_layer_story() {
     let best = phone
         .iter()
         .fold(phone[0], |a, &r| if r.1 > a.1 { r } else { a });
+    // issue 3's claim: phones more decodable in the upper hidden layers than in the input
+    // (layer 0), speakers less
     assert!(
-        best.0 != first && best.0 != last,
-        "best phone layer {} is not a hidden layer",
+        best.0 != first,
+        "best phone layer {} is the input, not a hidden layer",
         best.0
+    );
+    let at = |rows: &[(u64, f64, f64)], l: u64| rows.iter().find(|r| r.0 == l).unwrap().1;
+    assert!(
+        at(&phone, last) > at(&phone, first) + 0.05,
+        "phone accuracy does not rise from the input to the top layer: {phone:?}"
     );
     assert!(
         speaker.first().unwrap().1 > speaker.last().unwrap().1,

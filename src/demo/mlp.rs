@@ -21,6 +21,9 @@ pub struct Adam {
     pub beta2: f32,
     /// Denominator guard.
     pub eps: f32,
+    /// Layer-wise step decay: weight matrix `l` of `L` steps by `lr · layer_decay^(L − 1 − l)`
+    /// (1: the same step everywhere).
+    pub layer_decay: f32,
 }
 
 impl Default for Adam {
@@ -30,6 +33,7 @@ impl Default for Adam {
             beta1: 0.9,
             beta2: 0.999,
             eps: 1e-8,
+            layer_decay: 1.0,
         }
     }
 }
@@ -174,12 +178,14 @@ impl Mlp {
         self.t += 1;
         let bc1 = 1.0 - opt.beta1.powi(self.t);
         let bc2 = 1.0 - opt.beta2.powi(self.t);
-        let step = |p: &mut f32, m: &mut f32, v: &mut f32, g: f32| {
-            *m = opt.beta1 * *m + (1.0 - opt.beta1) * g;
-            *v = opt.beta2 * *v + (1.0 - opt.beta2) * g * g;
-            *p -= opt.lr * (*m / bc1) / ((*v / bc2).sqrt() + opt.eps);
-        };
-        for l in 0..self.w.len() {
+        let n_layers = self.w.len();
+        for l in 0..n_layers {
+            let lr = opt.lr * opt.layer_decay.powi((n_layers - 1 - l) as i32);
+            let step = |p: &mut f32, m: &mut f32, v: &mut f32, g: f32| {
+                *m = opt.beta1 * *m + (1.0 - opt.beta1) * g;
+                *v = opt.beta2 * *v + (1.0 - opt.beta2) * g * g;
+                *p -= lr * (*m / bc1) / ((*v / bc2).sqrt() + opt.eps);
+            };
             Zip::from(&mut self.w[l])
                 .and(&mut self.mw[l])
                 .and(&mut self.vw[l])

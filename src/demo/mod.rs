@@ -86,6 +86,12 @@ impl DemoSize {
     }
 }
 
+/// Layer-wise step decay of the demo's training: each weight matrix steps 0.7 times as far as
+/// the one above it (layer-wise learning-rate decay, as in discriminative fine-tuning; Howard &
+/// Ruder 2018). Lower layers settle early and upper layers keep moving, so the two shipped
+/// checkpoints differ most near the output, as they do when a real model is trained on.
+pub const LAYER_DECAY: f32 = 0.7;
+
 /// Context frames on each side of the centre frame in the network input.
 pub const CONTEXT: usize = 2;
 /// Hidden layer widths. Narrow enough that both shipped captures (every layer of over
@@ -254,6 +260,7 @@ pub fn run(opts: &DemoOptions, progress: &Progress) -> Result<DemoSummary> {
         };
         let opt = Adam {
             lr,
+            layer_decay: LAYER_DECAY,
             ..Adam::default()
         };
         for chunk in order.chunks(sc.batch) {
@@ -320,7 +327,7 @@ pub fn run(opts: &DemoOptions, progress: &Progress) -> Result<DemoSummary> {
         );
         let _ = writeln!(
             t,
-            "model = \"MLP {}-{}-{} (ReLU), softmax over {} phones (10 vowels, s, sh, f, sil); Adam, minibatch {}, seed {}\"",
+            "model = \"MLP {}-{}-{} (ReLU), softmax over {} phones (10 vowels, s, sh, f, sil); Adam with layer-wise step decay {LAYER_DECAY} (each layer steps {LAYER_DECAY}x as far as the one above), minibatch {}, seed {}\"",
             sizes[0],
             HIDDEN.iter().map(|h| h.to_string()).collect::<Vec<_>>().join("-"),
             PHONES.len(),
