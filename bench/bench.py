@@ -263,7 +263,7 @@ def row_pca(quick):
     speed = f["seconds"] / o["seconds"]
     n = gen_data.SIZES["probe"][1 if quick else 0]["train"]
     return row(
-        f"PCA top-{k} of {n} x 768 (randomized)",
+        f"PCA top-{k} of {n} x 768 (our auto solver: {o['solver']})",
         reference="scikit-learn PCA(svd_solver=randomized)",
         ref_s=f["seconds"],
         ours_s=o["seconds"],
@@ -272,9 +272,12 @@ def row_pca(quick):
         f"{sum(o['explained_variance_ratio']):.4f}",
         ref_mem=r.rss_mib,
         ours_mem=ours.rss_mib,
-        target="at least as fast, explained variance within 1e-3 relative",
-        met=yes(speed >= 1.0 and rel <= 1e-3, f"{speed:.2f}x, {rel:.1e}"),
-        notes="fit time only (loading excluded); data: the probe benchmark's raw training rows (power-law spectrum)",
+        target="at least as fast, explained variance within 1e-3 relative (of the exact eigenvalues)",
+        met=yes(speed >= 1.0 and err_o <= 1e-3, f"{speed:.2f}x, {err_o:.1e}"),
+        notes="fit time only (loading excluded); data: the probe benchmark's raw training rows (power-law spectrum); "
+        "ours picks the covariance solver for 50 of 768 dims (covariance from f32 products, subspace iteration to "
+        "convergence), so its error is rounding; a randomized solver with k + 10 columns cannot reach 1e-3 on this "
+        "slowly decaying spectrum (scikit-learn's error above)",
     )
 
 

@@ -30,9 +30,9 @@ SIZES = {
         {"train": 10_000, "test": 2_500, "dim": 768, "classes": 40},
     ),
     # t-SNE: a 50-dim mixture of 30 clusters of different sizes and spreads; iterations with
-    # early exaggeration, then without (the map command's 250 + 750; fewer in quick mode).
+    # early exaggeration, then without (the map command's 250 + 500; fewer in quick mode).
     "tsne": (
-        {"n": 10_000, "dim": 50, "clusters": 30, "early": 250, "iters": 750},
+        {"n": 10_000, "dim": 50, "clusters": 30, "early": 250, "iters": 500},
         {"n": 2_500, "dim": 50, "clusters": 30, "early": 100, "iters": 150},
     ),
     # CKA: a capture of 13 layers x 20 000 frames x 768 dims made by a random deep network.

@@ -2,7 +2,8 @@
 //! (`.npy`, f32), the same entry points `voxstrata map` uses. Prints one JSON line.
 //!
 //! Usage:
-//!   `bench_map pca X.npy K SEED` — randomized PCA, top K components; explained variances.
+//!   `bench_map pca X.npy K SEED [SOLVER]` — PCA (auto by default), top K components;
+//!   explained variances.
 //!   `bench_map tsne X.npy OUT.npy EARLY ITERS SEED` — t-SNE (perplexity 30, exaggeration 12
 //!   for EARLY iterations, then ITERS more) from the first two principal components scaled to
 //!   standard deviation 1e-4 (openTSNE's PCA start); the time covers the PCA start, the
@@ -33,8 +34,15 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
             let x = matrix(&PathBuf::from(&a[1]))?;
             let k: usize = arg(&a, 2, "K")?;
             let seed: u64 = arg(&a, 3, "SEED")?;
+            let solver = match a.get(4).map(String::as_str) {
+                None | Some("auto") => PcaSolver::Auto,
+                Some("randomized") => PcaSolver::Randomized,
+                Some("covariance") => PcaSolver::Covariance,
+                Some("exact") => PcaSolver::Exact,
+                Some(o) => return Err(format!("solver: expected auto|randomized|covariance|exact, found {o}").into()),
+            };
             let t = Instant::now();
-            let p = pca::fit(&x.view(), k, PcaSolver::Randomized, seed);
+            let p = pca::fit(&x.view(), k, solver, seed);
             let secs = t.elapsed().as_secs_f64();
             println!(
                 "{{\"seconds\": {secs:.6}, \"solver\": \"{:?}\", \"explained_variance\": {:?}, \"explained_variance_ratio\": {:?}}}",
@@ -67,7 +75,7 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
         }
         _ => {
             return Err(
-                "usage: bench_map pca X.npy K SEED | tsne X.npy OUT.npy EARLY ITERS SEED".into(),
+                "usage: bench_map pca X.npy K SEED [auto|randomized|covariance|exact] | tsne X.npy OUT.npy EARLY ITERS SEED".into(),
             )
         }
     }

@@ -2,7 +2,9 @@
 //!
 //! Exact path (small dim): the covariance in f64, diagonalised by one-sided Jacobi rotations
 //! (Hestenes 1958; for a symmetric positive semi-definite matrix its singular values are the
-//! eigenvalues). Randomized path (Halko, Martinsson & Tropp 2011, Algorithms 4.4 and 5.1): a
+//! eigenvalues). Covariance path (mid dims, e.g. top 50 of 768): the covariance from f32
+//! products summed in f64, top eigenpairs by subspace iteration to convergence, which is both
+//! cheaper and more accurate there than randomized passes over the data. Randomized path (Halko, Martinsson & Tropp 2011, Algorithms 4.4 and 5.1): a
 //! Gaussian test matrix with `k + 10` columns, power iterations re-orthonormalised by modified
 //! Gram-Schmidt (applied twice) in f64, then the small SVD of `Qᵀ A` by one-sided Jacobi.
 //! Component signs are fixed so the largest-magnitude loading is positive. Explained-variance
@@ -20,13 +22,25 @@ use rayon::prelude::*;
 #[derive(Clone, Copy, Debug, PartialEq, Eq, serde::Serialize)]
 #[serde(rename_all = "lowercase")]
 pub enum PcaSolver {
-    /// Exact when dim ≤ [`EXACT_MAX_DIM`], randomized otherwise.
+    /// Exact when dim ≤ [`EXACT_MAX_DIM`]; covariance when the covariance costs less than the
+    /// randomized passes (dim ≤ [`COVARIANCE_FACTOR`] × (k + oversampling)); randomized
+    /// otherwise.
     Auto,
-    /// Covariance eigendecomposition.
+    /// Covariance in f64, full eigendecomposition by Jacobi rotations.
     Exact,
+    /// Covariance from f32 products (f64 sums), top eigenpairs by subspace iteration with
+    /// Rayleigh–Ritz until the top k eigenvalues settle (to 1e-12 relative).
+    Covariance,
     /// Randomized SVD.
     Randomized,
 }
+
+/// `Auto` takes the covariance solver while dim ≤ this × (k + oversampling): forming the
+/// covariance costs n·dim² against about 2·(power iterations + 1)·n·dim·(k + oversampling)
+/// for the randomized passes, and its eigenpairs are then exact to rounding.
+pub const COVARIANCE_FACTOR: usize = 16;
+/// Most subspace iterations of the covariance solver.
+const SUBSPACE_MAX_ITERATIONS: usize = 1000;
 
 /// Largest dimension for which `Auto` uses the exact solver.
 pub const EXACT_MAX_DIM: usize = 128;
@@ -144,6 +158,66 @@ fn from_cols(cols: &[Vec<f64>]) -> Array2<f32> {
     Array2::from_shape_fn((m, cols.len()), |(i, j)| cols[j][i] as f32)
 }
 
+/// Top `k` eigenpairs (values decreasing, vectors as columns) of a symmetric positive
+/// semi-definite matrix, by block subspace iteration on `2k + 10` columns (Golub & Van Loan,
+/// Matrix Computations, §8.2.4) with a Rayleigh–Ritz step every 5 iterations; stops when the
+/// top k Ritz values change by less than 1e-12 relative.
+fn top_eigen_psd(c: &Array2<f64>, k: usize, seed: u64) -> (Vec<f64>, Vec<Vec<f64>>) {
+    let d = c.nrows();
+    let l = (2 * k + OVERSAMPLING).min(d);
+    let mut rng = ChaCha8Rng::seed_from_u64(seed);
+    let mut q = Array2::from_shape_fn((d, l), |_| {
+        let u1: f64 = rng.random::<f64>().max(1e-300);
+        let u2: f64 = rng.random::<f64>();
+        (-2.0 * u1.ln()).sqrt() * (std::f64::consts::TAU * u2).cos()
+    });
+    let orth = |m: &Array2<f64>| -> Array2<f64> {
+        let mut cols: Vec<Vec<f64>> = m.axis_iter(Axis(1)).map(|c| c.to_vec()).collect();
+        orthonormalise(&mut cols);
+        Array2::from_shape_fn((d, cols.len()), |(i, j)| cols[j][i])
+    };
+    // Rayleigh–Ritz on the current basis: eigenpairs of Qᵀ C Q (l × l, PSD, so its singular
+    // values and left vectors are its eigenpairs)
+    let ritz = |q: &Array2<f64>| -> (Vec<f64>, Vec<Vec<f64>>) {
+        let t = q.t().dot(&c.dot(q));
+        let cols: Vec<Vec<f64>> = t.axis_iter(Axis(1)).map(|c| c.to_vec()).collect();
+        let (s, u, _) = jacobi_svd(cols);
+        (s, u)
+    };
+    q = orth(&q);
+    let mut prev: Option<Vec<f64>> = None;
+    for it in 0..SUBSPACE_MAX_ITERATIONS {
+        q = orth(&c.dot(&q));
+        if it % 5 == 4 {
+            let (s, _) = ritz(&q);
+            let top: Vec<f64> = s.iter().take(k).cloned().collect();
+            let scale = top.first().cloned().unwrap_or(0.0).max(1e-300);
+            if let Some(p) = &prev {
+                let change = top
+                    .iter()
+                    .zip(p)
+                    .map(|(a, b)| (a - b).abs() / a.abs().max(1e-12 * scale))
+                    .fold(0f64, f64::max);
+                if change < 1e-12 {
+                    break;
+                }
+            }
+            prev = Some(top);
+        }
+    }
+    let (s, u) = ritz(&q);
+    let vecs: Vec<Vec<f64>> = u
+        .iter()
+        .take(k)
+        .map(|ui| {
+            (0..d)
+                .map(|r| q.row(r).iter().zip(ui).map(|(a, b)| a * b).sum())
+                .collect()
+        })
+        .collect();
+    (s.into_iter().take(k).collect(), vecs)
+}
+
 /// Fit the top `k` components of `x` (frames × dim).
 pub fn fit(x: &ArrayView2<f32>, k: usize, solver: PcaSolver, seed: u64) -> Pca {
     let (n, d) = x.dim();
@@ -170,6 +244,7 @@ pub fn fit(x: &ArrayView2<f32>, k: usize, solver: PcaSolver, seed: u64) -> Pca {
         / denom;
     let solver = match solver {
         PcaSolver::Auto if d <= EXACT_MAX_DIM || k * 2 >= d => PcaSolver::Exact,
+        PcaSolver::Auto if d <= COVARIANCE_FACTOR * (k + OVERSAMPLING) => PcaSolver::Covariance,
         PcaSolver::Auto => PcaSolver::Randomized,
         s => s,
     };
@@ -197,6 +272,16 @@ pub fn fit(x: &ArrayView2<f32>, k: usize, solver: PcaSolver, seed: u64) -> Pca {
                 s.iter().take(k).map(|v| v / denom).collect(),
                 u.into_iter().take(k).collect(),
             )
+        }
+        PcaSolver::Covariance => {
+            let mut c = x.to_owned();
+            for mut r in c.outer_iter_mut() {
+                r.iter_mut().zip(&mean32).for_each(|(v, m)| *v -= m);
+            }
+            let cov = crate::linalg::at_b(&c.view(), &c.view());
+            drop(c);
+            let (vals, vecs) = top_eigen_psd(&cov, k, seed);
+            (vals.iter().map(|v| v / denom).collect(), vecs)
         }
         _ => {
             let mut c = x.to_owned();
