@@ -122,3 +122,39 @@ pub fn text(size: f64) -> TextStyle<'static> {
 pub fn e2s<E: std::fmt::Display>(e: E) -> String {
     e.to_string()
 }
+
+#[cfg(test)]
+mod glyph_tests {
+    use super::*;
+
+    /// Render `text` alone in the embedded font onto a small white canvas (grey pixels).
+    fn render(text: &str) -> Vec<u8> {
+        register_font();
+        let (w, h) = (48u32, 48u32);
+        let mut buf = vec![255u8; (w * h * 3) as usize];
+        {
+            let area = BitMapBackend::with_buffer(&mut buf, (w, h)).into_drawing_area();
+            let style = (FONT, 32).into_font().color(&BLACK);
+            area.draw_text(text, &style, (6, 4)).unwrap();
+            area.present().unwrap();
+        }
+        buf
+    }
+
+    #[test]
+    fn ipa_and_hebrew_labels_render_as_real_glyphs() {
+        // U+E000 (private use) is not in DejaVu Sans, so it draws the missing-glyph box; each
+        // label character must draw something (not blank) and not that box.
+        let missing = render("\u{E000}");
+        let blank = vec![255u8; missing.len()];
+        assert_ne!(missing, blank, "the missing-glyph box itself drew nothing");
+        for c in [
+            "ʃ", "ʒ", "ŋ", "ɪ", "ɛ", "æ", "ɑ", "ɔ", "ʊ", "ʌ", "ə", "ɜ", "θ", "ð", "ʔ", "ː", "ɾ",
+            "ɹ", "ע", "ש", "é", "ü",
+        ] {
+            let got = render(c);
+            assert_ne!(got, blank, "{c} drew nothing");
+            assert_ne!(got, missing, "{c} drew the missing-glyph box");
+        }
+    }
+}

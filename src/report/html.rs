@@ -4,8 +4,8 @@
 //! Every string that comes from a capture (labels, names, paths, notes) goes through
 //! [`esc`] in HTML and SVG, and the explorer's JSON goes through [`script_json`], so no label
 //! can close a tag or the script. Figures drawn by the analyses are embedded as
-//! `data:image/svg+xml` images: an SVG shown as an image runs no script and cannot break
-//! the page around it. A Content-Security-Policy forbids every request to anything outside
+//! `data:image/svg+xml` images (PNG for the large map grids): an SVG shown as an image runs
+//! no script and cannot break the page around it. A Content-Security-Policy forbids every request to anything outside
 //! the file.
 
 use std::fmt::Write;
@@ -949,9 +949,11 @@ fn methods_html(out: &mut String, inp: &ReportInputs) {
                 let num = |v: &serde_json::Value| v.as_f64().map(|x| format!("{x}"));
                 let how = match o["method"].as_str() {
                     Some("tsne") => format!(
-                        "t-SNE (van der Maaten & Hinton 2008) after PCA to {} dimensions, perplexity {}, {} iterations, each layer started from the previous layer's map",
+                        "t-SNE (van der Maaten & Hinton 2008) after PCA to {} dimensions, perplexity {}, {} iterations with early exaggeration {} then {} more, each layer started from the previous layer's map scaled to standard deviation 1e-4",
                         num(&o["pca_dims"]).unwrap_or("?".into()),
                         num(&o["tsne"]["perplexity"]).unwrap_or("?".into()),
+                        num(&o["tsne"]["early_iterations"]).unwrap_or("?".into()),
+                        num(&o["tsne"]["exaggeration"]).unwrap_or("?".into()),
                         num(&o["tsne"]["iterations"]).unwrap_or("?".into())
                     ),
                     Some("pca") => "the first two principal components, aligned layer to layer by orthogonal Procrustes".to_string(),
@@ -1037,13 +1039,17 @@ fn methods_html(out: &mut String, inp: &ReportInputs) {
     }
 }
 
-fn figure_img(out: &mut String, title: &str, svg: &str) {
+fn figure_img(out: &mut String, f: &super::SvgFigure) {
+    let (kind, bytes) = match &f.png {
+        Some(p) => ("png", p.as_slice()),
+        None => ("svg+xml", f.svg.as_bytes()),
+    };
     let _ = write!(
         out,
-        "<figure class=\"ext\"><img alt=\"{}\" src=\"data:image/svg+xml;base64,{}\"><figcaption>{}</figcaption></figure>",
-        esc(title),
-        base64(svg.as_bytes()),
-        esc(title)
+        "<figure class=\"ext\"><img alt=\"{}\" src=\"data:image/{kind};base64,{}\"><figcaption>{}</figcaption></figure>",
+        esc(&f.title),
+        base64(bytes),
+        esc(&f.title)
     );
 }
 
@@ -1101,7 +1107,7 @@ pub fn render(inp: &ReportInputs) -> Result<String, ReportError> {
         .iter()
         .filter(|f| f.section == FigureSection::Probe)
     {
-        figure_img(&mut o, &f.title, &f.svg);
+        figure_img(&mut o, f);
     }
     o.push_str("</section>");
 
@@ -1124,7 +1130,7 @@ pub fn render(inp: &ReportInputs) -> Result<String, ReportError> {
         .iter()
         .filter(|f| f.section == FigureSection::Maps)
     {
-        figure_img(&mut o, &f.title, &f.svg);
+        figure_img(&mut o, f);
     }
     o.push_str("</section>");
 
@@ -1148,7 +1154,7 @@ pub fn render(inp: &ReportInputs) -> Result<String, ReportError> {
             .iter()
             .filter(|f| f.section == FigureSection::Compare)
         {
-            figure_img(&mut o, &f.title, &f.svg);
+            figure_img(&mut o, f);
         }
         let rows: Vec<Vec<String>> = c
             .probe_delta
@@ -1398,6 +1404,7 @@ mod page_tests {
                 title: bad.into(),
                 section: FigureSection::Compare,
                 svg: format!("<svg><text>{bad}</text></svg>"),
+                png: None,
             }],
             methods: Methods {
                 version: "0".into(),

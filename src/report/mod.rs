@@ -271,7 +271,14 @@ pub struct SvgFigure {
     pub section: FigureSection,
     /// The SVG document.
     pub svg: String,
+    /// The same figure as PNG, embedded instead of the SVG when the SVG is large (a map grid
+    /// of thousands of points is several MB as SVG and a few hundred kB as PNG).
+    pub png: Option<Vec<u8>>,
 }
+
+/// SVG figures above this size are embedded as their PNG when that is smaller, so a demo
+/// report stays well under 15 MB.
+pub const SVG_EMBED_LIMIT: usize = 512 * 1024;
 
 /// Section of the page a pre-rendered figure goes into.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
@@ -594,10 +601,18 @@ pub fn read_figures(
         .iter()
         .filter_map(|(stem, title, section)| {
             let svg = std::fs::read_to_string(dir.join(format!("{stem}.svg"))).ok()?;
+            let png = if svg.len() > SVG_EMBED_LIMIT {
+                std::fs::read(dir.join(format!("{stem}.png")))
+                    .ok()
+                    .filter(|p| p.len() < svg.len())
+            } else {
+                None
+            };
             Some(SvgFigure {
                 title: format!("{prefix}{title}"),
                 section: *section,
                 svg,
+                png,
             })
         })
         .collect()
@@ -936,14 +951,11 @@ pub fn run(
             compare = Some(cmp);
             method_options.push(("compare".to_string(), o));
         }
+        // The page draws its own CKA heatmap (with the value of each cell on hover), so
+        // compare_cka.png/svg stay in DIR but are not embedded a second time.
         figures.extend(read_figures(
             &opts.out,
             &[
-                (
-                    "compare_cka",
-                    "CKA between every pair of layers",
-                    FigureSection::Compare,
-                ),
                 (
                     "compare_change",
                     "change at each layer (1 − CKA of the same layer)",
