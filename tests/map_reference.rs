@@ -43,6 +43,15 @@ fn close(got: f64, want: f64, rel: f64, what: &str) {
     );
 }
 
+/// A list of numbers from the fixture.
+fn nums(v: &serde_json::Value, k: &str) -> Vec<f64> {
+    v[k].as_array()
+        .unwrap_or_else(|| panic!("{k} missing"))
+        .iter()
+        .map(|x| x.as_f64().unwrap())
+        .collect()
+}
+
 fn num(v: &serde_json::Value, k: &str) -> f64 {
     v[k].as_f64().unwrap_or_else(|| panic!("{k} missing"))
 }
@@ -125,12 +134,7 @@ fn variance_ratio_matches_numpy() {
 fn exact_pca_ratios_match_scikit_learn_and_the_published_iris_values() {
     for name in ["iris", "digits"] {
         let s = load(name);
-        let want: Vec<f64> = s.v["explained_variance_ratio_full"]
-            .as_array()
-            .unwrap()
-            .iter()
-            .map(|v| v.as_f64().unwrap())
-            .collect();
+        let want = nums(&s.v, "explained_variance_ratio_full");
         let k = want.len().min(20);
         let p = pca::fit(&s.x.view(), k, pca::PcaSolver::Exact, 0);
         for (i, &w) in want.iter().take(k).enumerate() {
@@ -158,12 +162,7 @@ fn exact_pca_ratios_match_scikit_learn_and_the_published_iris_values() {
 #[test]
 fn covariance_pca_ratios_match_scikit_learn() {
     let s = load("digits");
-    let want: Vec<f64> = s.v["explained_variance_ratio_full"]
-        .as_array()
-        .unwrap()
-        .iter()
-        .map(|v| v.as_f64().unwrap())
-        .collect();
+    let want = nums(&s.v, "explained_variance_ratio_full");
     let k = 20;
     let p = pca::fit(&s.x.view(), k, pca::PcaSolver::Covariance, 5);
     assert_eq!(p.solver, pca::PcaSolver::Covariance);
@@ -186,12 +185,7 @@ fn covariance_pca_ratios_match_scikit_learn() {
 #[test]
 fn randomized_pca_ratios_match_scikit_learn() {
     let s = load("digits");
-    let want: Vec<f64> = s.v["explained_variance_ratio_randomized"]
-        .as_array()
-        .unwrap()
-        .iter()
-        .map(|v| v.as_f64().unwrap())
-        .collect();
+    let want = nums(&s.v, "explained_variance_ratio_randomized");
     let p = pca::fit(&s.x.view(), want.len(), pca::PcaSolver::Randomized, 3);
     for (i, w) in want.iter().enumerate() {
         close(
