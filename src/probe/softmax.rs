@@ -151,11 +151,11 @@ pub fn cross_entropy_grad(
                     m = m.max(*v);
                 }
                 let zy = row[yi as usize];
-                let mut sum = 0f64;
+                // a pure map (vectorised), then the f64 sum
                 for v in row.iter_mut() {
                     *v = exp_f32(*v - m);
-                    sum += *v as f64;
                 }
+                let sum: f64 = row.iter().map(|&v| v as f64).sum();
                 ce += m as f64 + sum.ln() - zy as f64;
                 let inv = (1.0 / sum) as f32;
                 for (j, v) in row.iter_mut().enumerate() {
@@ -237,11 +237,8 @@ impl SoftmaxModel {
                         *v += bj;
                         m = m.max(*v);
                     }
-                    let mut sum = 0f64;
-                    for v in row.iter_mut() {
-                        *v = exp_f32(*v - m);
-                        sum += *v as f64;
-                    }
+                    row.mapv_inplace(|v| exp_f32(v - m));
+                    let sum: f64 = row.iter().map(|&v| v as f64).sum();
                     let inv = (1.0 / sum) as f32;
                     row.mapv_inplace(|v| v * inv);
                 }
