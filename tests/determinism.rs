@@ -107,3 +107,38 @@ fn tsne_map_is_identical_with_one_and_two_threads() {
 fn compare_is_identical_with_one_and_two_threads() {
     check(&["compare", "{a}", "{b}", "--bootstrap", "200"]);
 }
+
+/// The FFT gradient (maps of 2 500 points or more) on the shipped demo's final capture, one
+/// layer, ~4 100 sampled frames: the same records with one and two threads.
+#[test]
+fn fft_tsne_map_is_identical_with_one_and_two_threads() {
+    let demo = Path::new(env!("CARGO_MANIFEST_DIR")).join("demo_activations/final");
+    if !demo.is_dir() {
+        eprintln!("skipped: {} is not in this checkout", demo.display());
+        return;
+    }
+    let tmp = tempfile::tempdir().unwrap();
+    let (o1, o2) = (tmp.path().join("t1"), tmp.path().join("t2"));
+    for (t, o) in [("1", &o1), ("2", &o2)] {
+        run(
+            t,
+            &[
+                "--layers",
+                "3",
+                "map",
+                demo.to_str().unwrap(),
+                "--out",
+                o.to_str().unwrap(),
+            ],
+        );
+    }
+    let j: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(o1.join("purity.json")).unwrap()).unwrap();
+    assert!(
+        j.to_string().contains("\"fft\""),
+        "the demo map did not use the FFT gradient"
+    );
+    same_records(&o1, &o2);
+    let (e1, e2) = (o1.join("maps/layer_03.npy"), o2.join("maps/layer_03.npy"));
+    assert_eq!(std::fs::read(e1).unwrap(), std::fs::read(e2).unwrap());
+}
