@@ -338,8 +338,7 @@ pub fn run(
                         tsne::rescale(&two.view(), 1e-4)
                     }
                 };
-                let topts = opts.tsne.clone();
-                let r = tsne::run(&reduced.view(), &init.view(), &topts, || step.inc(1));
+                let r = tsne::run(&reduced.view(), &init.view(), &opts.tsne, || step.inc(1));
                 (
                     r.embedding,
                     p.explained_variance_ratio.clone(),
