@@ -8,7 +8,7 @@
 use std::path::PathBuf;
 use std::time::Instant;
 
-use voxstrata::compare::{self, CompareOptions};
+use voxstrata::analysis::compare::{self, CompareOptions};
 use voxstrata::{Capture, CommonOptions, OpenOptions, Progress};
 
 fn main() -> Result<(), Box<dyn std::error::Error>> {

@@ -13,9 +13,9 @@ use std::path::PathBuf;
 use std::time::Instant;
 
 use ndarray::Array2;
+use voxstrata::analysis::map::pca::{self, PcaSolver};
+use voxstrata::analysis::map::tsne::{self, TsneOptions};
 use voxstrata::capture::NpyFile;
-use voxstrata::map::pca::{self, PcaSolver};
-use voxstrata::map::tsne::{self, TsneOptions};
 
 fn matrix(path: &std::path::Path) -> Result<Array2<f32>, Box<dyn std::error::Error>> {
     Ok(NpyFile::open(path)?.read_layer(0))
@@ -67,7 +67,7 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
             let init = tsne::rescale(&p.transform(&x.view()).view(), 1e-4);
             let r = tsne::run(&x.view(), &init.view(), &opts, || {});
             let secs = t.elapsed().as_secs_f64();
-            voxstrata::output::write_npy_f32(&out, &r.embedding.view())?;
+            voxstrata::write::write_npy_f32(&out, &r.embedding.view())?;
             println!(
                 "{{\"seconds\": {secs:.6}, \"kl_divergence\": {}, \"perplexity\": {}, \"gradient\": \"{}\"}}",
                 r.kl_divergence, r.perplexity, r.gradient

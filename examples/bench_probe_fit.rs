@@ -10,9 +10,9 @@ use std::path::PathBuf;
 use std::time::Instant;
 
 use ndarray::{Array1, Array2};
+use voxstrata::analysis::probe::lbfgs::LbfgsOptions;
+use voxstrata::analysis::probe::softmax::{self, FitSettings, Standardizer};
 use voxstrata::capture::NpyFile;
-use voxstrata::probe::lbfgs::LbfgsOptions;
-use voxstrata::probe::softmax::{self, FitSettings, Standardizer};
 
 fn labels(path: &std::path::Path) -> Result<Vec<u32>, Box<dyn std::error::Error>> {
     let y: Array1<i64> = ndarray_npy::read_npy(path)?;
@@ -64,9 +64,9 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
     let acc = pred.iter().zip(&yt).filter(|(a, b)| a == b).count() as f64 / yt.len() as f64;
     // Each objective evaluation does two products of 2·n·d·k flops each (scores, gradient).
     let flops = m.evaluations as f64 * 4.0 * (n * d * k) as f64;
-    voxstrata::output::write_npy_f32(&out.join("coef.npy"), &m.w.view())?;
+    voxstrata::write::write_npy_f32(&out.join("coef.npy"), &m.w.view())?;
     let b = Array2::from_shape_vec((1, k), m.b.clone())?;
-    voxstrata::output::write_npy_f32(&out.join("intercept.npy"), &b.view())?;
+    voxstrata::write::write_npy_f32(&out.join("intercept.npy"), &b.view())?;
     println!(
         "{{\"n\": {n}, \"d\": {d}, \"k\": {k}, \"c\": {}, \"seconds\": {secs:.6}, \"iterations\": {}, \"evaluations\": {}, \"converged\": {}, \"test_accuracy\": {acc:.6}, \"objective\": {}, \"gflops\": {:.3}}}",
         settings.c,

@@ -39,7 +39,7 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
             drop(m);
         }
         let path = out.join(format!("layer_{:02}_rows.npy", layer.id));
-        voxstrata::output::write_npy_f32(&path, &sample.view())?;
+        voxstrata::write::write_npy_f32(&path, &sample.view())?;
         let out_bytes = (shape.0 * shape.1 * 4) as f64;
         println!(
             "{{\"layer\": {}, \"dtype\": \"{}\", \"frames\": {}, \"dim\": {}, \"file_bytes\": {}, \"seconds\": {:.6}, \"out_gb_per_s\": {:.4}, \"every\": {}, \"sample\": \"{}\"}}",

@@ -9,7 +9,7 @@ use ndarray::Array2;
 use rand::Rng;
 use rand_chacha::rand_core::SeedableRng;
 use rand_chacha::ChaCha8Rng;
-use voxstrata::compare::{self, CompareOptions};
+use voxstrata::analysis::compare::{self, CompareOptions};
 use voxstrata::{Capture, CommonOptions, OpenOptions, Progress};
 
 fn random(n: usize, d: usize, seed: u64) -> Array2<f32> {
@@ -43,11 +43,11 @@ fn main() {
     let layers = args.get(2).copied().unwrap_or(13);
     let x = random(n, d, 1);
     let y = random(n, d, 2);
-    let _ = voxstrata::linalg::at_b(&x.view(), &y.view());
+    let _ = voxstrata::analysis::linalg::at_b(&x.view(), &y.view());
     let reps = 3;
     let t = Instant::now();
     for _ in 0..reps {
-        std::hint::black_box(voxstrata::linalg::at_b(&x.view(), &y.view()));
+        std::hint::black_box(voxstrata::analysis::linalg::at_b(&x.view(), &y.view()));
     }
     let s = t.elapsed().as_secs_f64() / reps as f64;
     let flop = 2.0 * n as f64 * d as f64 * d as f64;
@@ -68,7 +68,7 @@ fn main() {
     let t = Instant::now();
     let mut x = a.read_layer(0).unwrap();
     let t_read = t.elapsed().as_secs_f64();
-    voxstrata::compare::cka::centre(&mut x);
+    voxstrata::analysis::compare::cka::centre(&mut x);
     println!(
         "read one layer: {:.3} s, centre it: {:.3} s",
         t_read,

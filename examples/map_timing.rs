@@ -11,8 +11,8 @@ use std::time::Instant;
 use ndarray::Array2;
 use rand::{Rng, SeedableRng};
 use rand_chacha::ChaCha8Rng;
-use voxstrata::map::{pca, tsne};
-use voxstrata::purity;
+use voxstrata::analysis::map::{pca, tsne};
+use voxstrata::analysis::purity;
 
 /// Gaussian mixture: `k` centres in `d` dims plus unit noise (a low-rank signal for PCA).
 fn mixture(n: usize, d: usize, k: usize, spread: f32, seed: u64) -> Array2<f32> {

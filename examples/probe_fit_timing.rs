@@ -6,8 +6,8 @@ use std::time::Instant;
 use ndarray::Array2;
 use rand::{Rng, SeedableRng};
 use rand_chacha::ChaCha8Rng;
-use voxstrata::probe::lbfgs::LbfgsOptions;
-use voxstrata::probe::softmax::{self, FitSettings, Standardizer};
+use voxstrata::analysis::probe::lbfgs::LbfgsOptions;
+use voxstrata::analysis::probe::softmax::{self, FitSettings, Standardizer};
 
 fn main() {
     let a: Vec<usize> = std::env::args()

@@ -1,13 +1,13 @@
 //! The one place where stage errors become the CLI's exit codes: 2 for bad input (the user
 //! can fix it), 1 for internal failure.
 
+use crate::analysis::compare::CompareError;
+use crate::analysis::map::MapError;
+use crate::analysis::probe::ProbeError;
 use crate::capture::CaptureError;
-use crate::compare::CompareError;
-use crate::map::MapError;
-use crate::output::OutputError;
-use crate::plot::PlotError;
-use crate::probe::ProbeError;
-use crate::report::ReportError;
+use crate::commands::report::ReportError;
+use crate::render::PlotError;
+use crate::write::OutputError;
 
 /// Any error the library returns to the CLI.
 #[derive(Debug, thiserror::Error)]

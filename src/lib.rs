@@ -1,24 +1,20 @@
 //! voxstrata: layer-by-layer analysis of a speech model's per-frame activations.
 //!
-//! Pipeline: [`capture`] (read layers and labels) → [`select`] (filters, pooling, splits)
-//! → analyses (probe, map, purity, compare) → tidy records ([`output`]) → pictures
-//! ([`plot`]) and the report. See `docs/design.md`.
+//! Data flow, one folder a stage (see `docs/design.md`): [`capture`] reads layers and labels,
+//! [`select`] filters, pools, samples and splits frames, [`analysis`] computes (pure functions
+//! returning [`records`]), [`write`] puts records into files, [`render`] draws figures and the
+//! report page from records, and [`commands`] runs one command's whole sequence.
 
+pub mod analysis;
 pub mod capture;
-pub mod compare;
+pub mod commands;
 pub mod demo;
 pub mod error;
-pub mod inspect;
-pub mod linalg;
-pub mod map;
-pub mod output;
-pub mod plot;
-pub mod probe;
 pub mod progress;
-pub mod purity;
-pub mod report;
+pub mod records;
+pub mod render;
 pub mod select;
-pub mod stats;
+pub mod write;
 
 pub use capture::{Capture, CaptureError, OpenOptions};
 pub use error::{Error, Result};

@@ -1,12 +1,16 @@
-//! Command-line front end: parse, call the library, print. Exit codes: 0 success,
+//! Command-line front end: clap, then one call per command into `voxstrata::commands`. Exit codes: 0 success,
 //! 2 bad input, 1 internal failure.
 
 use std::path::PathBuf;
 use std::process::ExitCode;
 
 use clap::{Args, Parser, Subcommand};
+use voxstrata::analysis::compare::{CompareOptions, Estimator, Kernel, MatchBy};
+use voxstrata::analysis::map::MapOptions;
+use voxstrata::analysis::probe::ProbeOptions;
 use voxstrata::capture::{LabelOptions, LayerSelection};
-use voxstrata::{Capture, CommonOptions, Error, OpenOptions, Progress};
+use voxstrata::commands;
+use voxstrata::{CommonOptions, Error, OpenOptions, Progress};
 
 #[derive(Parser, Debug)]
 #[command(
@@ -253,6 +257,53 @@ fn open_options(c: &CaptureArgs) -> Result<OpenOptions, Error> {
     })
 }
 
+fn map_method(m: MapMethod) -> voxstrata::analysis::map::Method {
+    match m {
+        MapMethod::Tsne => voxstrata::analysis::map::Method::Tsne,
+        MapMethod::Pca => voxstrata::analysis::map::Method::Pca,
+    }
+}
+
+fn probe_options(p: &ProbeArgs) -> ProbeOptions {
+    ProbeOptions {
+        tasks: p.tasks.clone(),
+        pooling: p.pool,
+        context: p.context,
+        split: p.split,
+        test_fraction: p.test_fraction,
+        folds: p.folds,
+        max_train_frames: p.max_train_frames,
+        max_test_frames: p.max_test_frames,
+        bootstrap: p.bootstrap,
+        control: !p.no_control,
+        strict: p.strict,
+        ..Default::default()
+    }
+}
+
+fn compare_options(args: &CompareArgs) -> CompareOptions {
+    CompareOptions {
+        match_by: match args.match_by {
+            MatchByArg::Row => MatchBy::Row,
+            MatchByArg::Utterance => MatchBy::Utterance,
+        },
+        max_frames: args.max_frames,
+        kernel: match args.kernel {
+            KernelArg::Linear => Kernel::Linear,
+            KernelArg::Rbf => Kernel::Rbf,
+        },
+        estimator: match args.hsic {
+            HsicArg::Full => Estimator::Full,
+            HsicArg::Minibatch => Estimator::Minibatch,
+        },
+        batch_size: args.batch_size,
+        probe: !args.no_probe,
+        tasks: args.tasks.clone(),
+        bootstrap: args.bootstrap,
+        ..Default::default()
+    }
+}
+
 fn run(cli: Cli) -> Result<(), Error> {
     let common = CommonOptions {
         seed: cli.seed,
@@ -268,50 +319,26 @@ fn run(cli: Cli) -> Result<(), Error> {
     }
     match cli.command {
         Command::Inspect { capture, json, cap } => {
-            let c = Capture::open(&capture, &open_options(&cap)?)?;
-            let s = voxstrata::inspect::summarise(&c);
-            if json {
-                let text =
-                    serde_json::to_string_pretty(&s).map_err(|e| Error::Internal(e.to_string()))?;
-                println!("{text}");
-            } else {
-                print!("{}", voxstrata::inspect::render_text(&s));
-            }
-            Ok(())
+            let args = commands::inspect::InspectArgs {
+                capture,
+                open: open_options(&cap)?,
+                json,
+            };
+            commands::inspect::run(&args, &progress)
         }
         Command::Probe {
             capture,
             cap,
             probe,
         } => {
-            let opts = voxstrata::probe::ProbeOptions {
-                tasks: probe.tasks,
-                pooling: probe.pool,
-                context: probe.context,
-                split: probe.split,
-                test_fraction: probe.test_fraction,
-                folds: probe.folds,
-                max_train_frames: probe.max_train_frames,
-                max_test_frames: probe.max_test_frames,
-                bootstrap: probe.bootstrap,
-                control: !probe.no_control,
-                strict: probe.strict,
-                ..Default::default()
+            let args = commands::probe::ProbeArgs {
+                capture,
+                open: open_options(&cap)?,
+                probe: probe_options(&probe),
+                out: probe.out,
+                force: probe.force,
             };
-            // Refuse an unusable output folder before any work (nothing is created here).
-            if probe.out.exists() {
-                voxstrata::output::prepare_out_dir(&probe.out, probe.force)?;
-            }
-            let c = Capture::open(&capture, &open_options(&cap)?)?;
-            let report = voxstrata::probe::run(&c, &opts, &common, &progress)?;
-            for n in &report.notes {
-                eprintln!("voxstrata: {n}");
-            }
-            voxstrata::output::prepare_out_dir(&probe.out, probe.force)?;
-            voxstrata::probe::write_outputs(&report, &probe.out)?;
-            print!("{}", voxstrata::probe::summary_text(&report));
-            println!("  outputs in {}", probe.out.display());
-            Ok(())
+            commands::probe::run(&args, &common, &progress)
         }
         Command::Map {
             capture,
@@ -322,26 +349,19 @@ fn run(cli: Cli) -> Result<(), Error> {
             force,
             cap,
         } => {
-            voxstrata::map::check_out_dir(&out, force)?;
-            let c = Capture::open(&capture, &open_options(&cap)?)?;
-            let method = match method {
-                MapMethod::Tsne => voxstrata::map::Method::Tsne,
-                MapMethod::Pca => voxstrata::map::Method::Pca,
+            let args = commands::map::MapArgs {
+                capture,
+                open: open_options(&cap)?,
+                map: MapOptions {
+                    method: map_method(method),
+                    per_label,
+                    color_by,
+                    ..Default::default()
+                },
+                out,
+                force,
             };
-            let opts = voxstrata::map::MapOptions {
-                method,
-                per_label,
-                color_by,
-                ..Default::default()
-            };
-            let report = voxstrata::map::run(&c, &opts, &common, &progress)?;
-            for n in &report.notes {
-                eprintln!("note: {n}");
-            }
-            voxstrata::map::write_outputs(&report, &out, force)?;
-            print!("{}", report.summary.render());
-            println!("wrote {}", out.display());
-            Ok(())
+            commands::map::run(&args, &common, &progress)
         }
         Command::Compare {
             capture_a,
@@ -349,63 +369,35 @@ fn run(cli: Cli) -> Result<(), Error> {
             cap,
             args,
         } => {
-            use voxstrata::compare::{self, CompareOptions, Estimator, Kernel, MatchBy};
-            let opts = CompareOptions {
-                match_by: match args.match_by {
-                    MatchByArg::Row => MatchBy::Row,
-                    MatchByArg::Utterance => MatchBy::Utterance,
-                },
-                max_frames: args.max_frames,
-                kernel: match args.kernel {
-                    KernelArg::Linear => Kernel::Linear,
-                    KernelArg::Rbf => Kernel::Rbf,
-                },
-                estimator: match args.hsic {
-                    HsicArg::Full => Estimator::Full,
-                    HsicArg::Minibatch => Estimator::Minibatch,
-                },
-                batch_size: args.batch_size,
-                probe: !args.no_probe,
-                tasks: args.tasks,
-                bootstrap: args.bootstrap,
-                ..Default::default()
+            let run_args = commands::compare::CompareArgs {
+                capture_a,
+                capture_b,
+                open: open_options(&cap)?,
+                compare: compare_options(&args),
+                out: args.out,
+                force: args.force,
             };
-            // Refuse an unusable output folder before any work (nothing is created here).
-            if args.out.exists() {
-                voxstrata::output::prepare_out_dir(&args.out, args.force)?;
-            }
-            let oo = open_options(&cap)?;
-            let a = Capture::open(&capture_a, &oo)?;
-            let b = Capture::open(&capture_b, &oo)?;
-            let report = compare::run(&a, &b, &opts, &common, &progress)?;
-            voxstrata::output::prepare_out_dir(&args.out, args.force)?;
-            compare::write_outputs(&report, &args.out)?;
-            print!("{}", compare::summary_text(&report));
-            Ok(())
+            commands::compare::run(&run_args, &common, &progress)
         }
         Command::Report {
             captures,
             out,
             force,
-            map_method,
+            map_method: method,
             cap,
         } => {
-            let method = match map_method {
-                MapMethod::Tsne => voxstrata::map::Method::Tsne,
-                MapMethod::Pca => voxstrata::map::Method::Pca,
-            };
-            let opts = voxstrata::report::ReportOptions {
+            let opts = commands::report::ReportOptions {
+                captures,
                 out,
                 force,
-                common,
                 open: open_options(&cap)?,
-                map: voxstrata::map::MapOptions {
-                    method,
+                map: MapOptions {
+                    method: map_method(method),
                     ..Default::default()
                 },
                 ..Default::default()
             };
-            let rec = voxstrata::report::run(&captures, &opts, &progress)?;
+            let rec = commands::report::run(&opts, &common, &progress)?;
             if !cli.quiet {
                 let total = rec.timings.last().map(|t| t.seconds).unwrap_or(0.0);
                 eprintln!(
@@ -416,29 +408,16 @@ fn run(cli: Cli) -> Result<(), Error> {
             Ok(())
         }
         Command::Demo { out, force, size } => {
-            let size = match size {
-                DemoSizeArg::Default => voxstrata::demo::DemoSize::Default,
-                DemoSizeArg::Small => voxstrata::demo::DemoSize::Small,
-            };
-            let opts = voxstrata::demo::DemoOptions {
+            let args = commands::demo::DemoArgs {
                 out,
                 force,
                 seed: common.seed,
-                size,
+                size: match size {
+                    DemoSizeArg::Default => voxstrata::demo::DemoSize::Default,
+                    DemoSizeArg::Small => voxstrata::demo::DemoSize::Small,
+                },
             };
-            let s = voxstrata::demo::run(&opts, &progress)?;
-            println!(
-                "demo: {} talkers ({} held out), {} training frames, {} frames per capture",
-                s.talkers, s.heldout_talkers, s.train_frames, s.capture_frames
-            );
-            println!(
-                "held-out (speaker-disjoint) phone accuracy: early (step {}) {:.4}, final (step {}) {:.4}",
-                s.steps.0, s.heldout_accuracy.0, s.steps.1, s.heldout_accuracy.1
-            );
-            for c in &s.captures {
-                println!("wrote {}", c.display());
-            }
-            Ok(())
+            commands::demo::run(&args, &progress)
         }
     }
 }

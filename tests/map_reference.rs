@@ -5,8 +5,8 @@
 use std::path::PathBuf;
 
 use ndarray::{Array1, Array2};
-use voxstrata::map::{pca, tsne};
-use voxstrata::purity;
+use voxstrata::analysis::map::{pca, tsne};
+use voxstrata::analysis::purity;
 
 fn dir() -> PathBuf {
     PathBuf::from(env!("CARGO_MANIFEST_DIR")).join("tests/reference/map")

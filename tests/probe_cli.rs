@@ -8,9 +8,9 @@ use std::process::Command;
 use linfa::prelude::*;
 use ndarray::{Array1, Array2, Axis};
 use ndarray_npy::read_npy;
-use voxstrata::probe::lbfgs::LbfgsOptions;
-use voxstrata::probe::softmax::{self, FitSettings, Standardizer};
-use voxstrata::probe::{metrics, ProbeOptions};
+use voxstrata::analysis::probe::lbfgs::LbfgsOptions;
+use voxstrata::analysis::probe::softmax::{self, FitSettings, Standardizer};
+use voxstrata::analysis::probe::{metrics, ProbeOptions};
 
 fn fixtures() -> PathBuf {
     Path::new(env!("CARGO_MANIFEST_DIR")).join("tests/reference/probe")
@@ -175,9 +175,16 @@ fn fit_predict_chooses_a_penalty_from_the_grid() {
     let d = load("wine");
     let groups: Vec<u32> = (0..d.ytr.len() as u32).collect();
     let opts = ProbeOptions::default();
-    let fit =
-        voxstrata::probe::fit_predict(d.xtr.view(), &d.ytr, 3, d.xte.view(), &groups, &opts, 1)
-            .unwrap();
+    let fit = voxstrata::analysis::probe::fit_predict(
+        d.xtr.view(),
+        &d.ytr,
+        3,
+        d.xte.view(),
+        &groups,
+        &opts,
+        1,
+    )
+    .unwrap();
     assert_eq!(fit.search.len(), opts.alphas.len());
     assert!(opts.alphas.contains(&fit.alpha));
     assert!((fit.c - 1.0 / (fit.alpha * d.ytr.len() as f64)).abs() < 1e-12);

@@ -102,7 +102,7 @@ impl Mlp {
     /// Hidden activations (post-ReLU) of every hidden layer and the output logits.
     /// Uses the blocked parallel product: for whole data sets.
     pub fn forward_all(&self, x: &ArrayView2<f32>) -> Vec<Array2<f32>> {
-        self.forward_with(x, crate::linalg::matmul)
+        self.forward_with(x, crate::analysis::linalg::matmul)
     }
 
     fn forward_with(

@@ -19,7 +19,7 @@ use rand_chacha::ChaCha8Rng;
 use rayon::prelude::*;
 
 use crate::error::{Error, Result};
-use crate::output::{prepare_out_dir, write_atomic};
+use crate::write::{prepare_out_dir, write_atomic};
 use crate::Progress;
 use features::{FrontEnd, N_MEL};
 use mlp::{Adam, Mlp};

@@ -7,10 +7,10 @@
 use rand::seq::SliceRandom;
 use rand::SeedableRng;
 use rand_chacha::ChaCha8Rng;
-use serde::Serialize;
+use serde::{Deserialize, Serialize};
 
 /// How items are grouped when split.
-#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize)]
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, Deserialize)]
 #[serde(rename_all = "lowercase")]
 pub enum SplitKind {
     /// Speaker-disjoint for every task but `speaker`, which gets a per-speaker utterance split.
@@ -229,7 +229,7 @@ pub fn make_split(
 }
 
 /// Result of checking that a split keeps the promise its kind makes.
-#[derive(Clone, Debug, Serialize)]
+#[derive(Clone, Debug, Serialize, Deserialize)]
 pub struct LeakageCheck {
     /// What the split promises, in words.
     pub promise: String,

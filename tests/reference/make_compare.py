@@ -1,4 +1,4 @@
-"""Reference values for `voxstrata compare` and `voxstrata::stats`, computed with numpy,
+"""Reference values for `voxstrata compare` and `voxstrata::analysis::stats`, computed with numpy,
 scipy and scikit-learn (versions pinned in requirements.txt).
 
 Linear and RBF CKA follow the published formula of Kornblith et al. (2019), computed the

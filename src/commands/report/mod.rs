@@ -1,0 +1,444 @@
+//! `voxstrata report`: every analysis of one or two captures, gathered into one
+//! self-contained `index.html` with `run.json` beside it.
+//!
+//! The sequence: check every option and the output folder, open and validate every capture
+//! (before any analysis), then for each capture inspect, probe and map, and for two captures
+//! compare; each result is written by the same writer its own command uses, kept in memory,
+//! and handed to the page ([`crate::render::page::render`]). Nothing is read back from disk.
+
+mod sources;
+
+use std::path::{Path, PathBuf};
+use std::time::Instant;
+
+pub use sources::{demo_candidates, demo_captures, frame_info, hash_files, input_files};
+
+use super::Written;
+use crate::analysis::{compare::CompareOptions, map::MapOptions, probe::ProbeOptions};
+use crate::capture::{Capture, OpenOptions};
+use crate::records::map::MapReport;
+use crate::records::run::{FileHash, RunRecord, StepTime};
+use crate::records::CaptureRef;
+use crate::render::page::{
+    self, CaptureSection, CompareInputs, FigureSection, MapSet, Methods, ReportInputs, SvgFigure,
+    SVG_EMBED_LIMIT,
+};
+use crate::render::Drawn;
+use crate::write;
+use crate::{CommonOptions, Progress};
+
+/// Errors of the report stage.
+#[derive(Debug, thiserror::Error)]
+pub enum ReportError {
+    /// More captures than the report can compare.
+    #[error("report takes one or two captures, found {found}: {names}")]
+    TooManyCaptures {
+        /// How many were given.
+        found: usize,
+        /// Their paths.
+        names: String,
+    },
+    /// No capture was given and the shipped demo is not where it should be.
+    #[error("no capture given and the shipped demo was not found (looked in {searched}); give a capture folder or build the demo with `voxstrata demo --out demo_activations`")]
+    DemoMissing {
+        /// Folders searched.
+        searched: String,
+    },
+    /// Two captures that cannot be compared frame by frame.
+    #[error("{a} and {b}: expected two captures of the same frames, found {found}")]
+    Mismatch {
+        /// First capture.
+        a: String,
+        /// Second capture.
+        b: String,
+        /// What differs.
+        found: String,
+    },
+    /// A broken invariant inside the report (exit code 1).
+    #[error("report: {0}")]
+    Internal(String),
+    /// An input file could not be hashed.
+    #[error("{path}: cannot read for hashing: {source}")]
+    Hash {
+        /// The file.
+        path: PathBuf,
+        /// The OS error.
+        source: std::io::Error,
+    },
+    /// Page data could not be encoded.
+    #[error("cannot encode report data: {0}")]
+    Encode(String),
+}
+
+impl ReportError {
+    /// Whether the user can fix this (exit code 2) rather than an internal failure (1).
+    pub fn is_input(&self) -> bool {
+        matches!(
+            self,
+            ReportError::TooManyCaptures { .. }
+                | ReportError::DemoMissing { .. }
+                | ReportError::Mismatch { .. }
+        )
+    }
+}
+
+/// Options of `voxstrata report`.
+#[derive(Clone, Debug, Default)]
+pub struct ReportOptions {
+    /// One or two capture folders (none: the shipped demo).
+    pub captures: Vec<PathBuf>,
+    /// Output folder.
+    pub out: PathBuf,
+    /// Write into an output folder that already holds files.
+    pub force: bool,
+    /// How captures are opened (label cleaning, non-finite frames).
+    pub open: OpenOptions,
+    /// Probe settings.
+    pub probe: ProbeOptions,
+    /// Map and purity settings.
+    pub map: MapOptions,
+    /// Comparison settings (two captures).
+    pub compare: CompareOptions,
+}
+
+impl ReportOptions {
+    /// Refuse options that cannot work, before any work.
+    pub fn check(&self) -> crate::Result<()> {
+        self.probe.check()?;
+        self.map.check()?;
+        self.compare.check()?;
+        if self.captures.len() > 2 {
+            return Err(ReportError::TooManyCaptures {
+                found: self.captures.len(),
+                names: self
+                    .captures
+                    .iter()
+                    .map(|p| p.display().to_string())
+                    .collect::<Vec<_>>()
+                    .join(", "),
+            }
+            .into());
+        }
+        Ok(())
+    }
+}
+
+/// Seconds per step, kept in order.
+#[derive(Default)]
+struct Clock(Vec<StepTime>);
+
+impl Clock {
+    fn done(&mut self, step: &str, t: Instant) {
+        self.0.push(StepTime {
+            step: step.to_string(),
+            seconds: t.elapsed().as_secs_f64(),
+        });
+    }
+}
+
+/// What one capture's analyses produced: the page's section, the options each ran with, the
+/// figures to embed and the files written.
+struct CaptureResult {
+    section: CaptureSection,
+    options: Vec<(String, serde_json::Value)>,
+    figures: Vec<SvgFigure>,
+    written: Vec<PathBuf>,
+}
+
+/// `voxstrata report`: check, open and validate every capture, analyse, write the records,
+/// figures, `index.html` and `run.json` into `opts.out`.
+pub fn run(
+    opts: &ReportOptions,
+    common: &CommonOptions,
+    progress: &Progress,
+) -> crate::Result<RunRecord> {
+    let t_all = Instant::now();
+    let mut clock = Clock::default();
+    let mut opts = opts.clone();
+    if opts.captures.is_empty() {
+        opts.captures = demo_captures()?;
+    }
+    opts.check()?;
+    write::check_out_dir(&opts.out, opts.force)?;
+
+    let t = Instant::now();
+    let caps = open_all(&opts, common)?;
+    clock.done("open and validate", t);
+    write::prepare_out_dir(&opts.out, opts.force)?;
+    let dirs = capture_dirs(&caps, &opts.out);
+
+    let mut hashes = Vec::new();
+    let mut results = Vec::new();
+    for (c, dir) in caps.iter().zip(&dirs) {
+        let t = Instant::now();
+        hashes.extend(hash_files(&c.name, &input_files(c), progress)?);
+        clock.done(&format!("hash {}", c.name), t);
+        let prefix = if caps.len() > 1 {
+            format!("{}: ", c.name)
+        } else {
+            String::new()
+        };
+        results.push(analyse_capture(
+            c, dir, &prefix, &opts, common, progress, &mut clock,
+        )?);
+    }
+    let mut compare = None;
+    let mut compare_written = Written::default();
+    let mut compare_options = None;
+    if let [a, b] = caps.as_slice() {
+        let t = Instant::now();
+        let rep = crate::analysis::compare::run(a, b, &opts.compare, common, progress)?;
+        compare_written = super::compare::write(&rep, &opts.out)?;
+        compare_options = Some(rep.options.clone());
+        compare = Some(CompareInputs {
+            name_a: a.name.clone(),
+            name_b: b.name.clone(),
+            cka: rep.cka,
+            probe_delta: rep.probe_delta,
+            notes: rep.notes,
+        });
+        clock.done("compare", t);
+    }
+
+    let t = Instant::now();
+    let mut outputs: Vec<PathBuf> = Vec::new();
+    let mut figures = Vec::new();
+    let mut method_options = Vec::new();
+    let mut sections = Vec::new();
+    for r in results {
+        outputs.extend(r.written);
+        figures.extend(r.figures);
+        method_options.extend(r.options);
+        sections.push(r.section);
+    }
+    if let Some(o) = compare_options {
+        method_options.push(("compare".to_string(), o));
+    }
+    outputs.extend(compare_written.files);
+    // The page shows the CKA values in its table and the heatmap as drawn for compare_cka.
+    figures.extend(
+        compare_written
+            .figures
+            .into_iter()
+            .map(|d| embed(d, FigureSection::Compare, "")),
+    );
+    let inputs = ReportInputs {
+        title: page_title(&caps),
+        captures: sections,
+        compare,
+        figures,
+        methods: Methods {
+            version: env!("CARGO_PKG_VERSION").to_string(),
+            seed: common.seed,
+            options: method_options,
+            hashes: hashes.clone(),
+            timings: clock
+                .0
+                .iter()
+                .map(|s| (s.step.clone(), s.seconds))
+                .collect(),
+        },
+    };
+    let step = progress.step("writing report", 1);
+    let index = opts.out.join("index.html");
+    write::write_atomic(&index, page::render(&inputs).as_bytes())?;
+    step.inc(1);
+    drop(step);
+    outputs.push(index);
+    clock.done("write index.html", t);
+    clock.0.push(StepTime {
+        step: "total".into(),
+        seconds: t_all.elapsed().as_secs_f64(),
+    });
+    write_run_record(&opts, common, &caps, clock.0, hashes, outputs)
+}
+
+/// Open every capture and check they can be analysed together, before any analysis.
+fn open_all(opts: &ReportOptions, common: &CommonOptions) -> crate::Result<Vec<Capture>> {
+    let mut caps = Vec::new();
+    for p in &opts.captures {
+        let cap = Capture::open(p, &opts.open)?;
+        cap.select_layers(common.layers.as_ref())?;
+        caps.push(cap);
+    }
+    if let [a, b] = caps.as_slice() {
+        let ids = |c: &Capture| c.layers.iter().map(|l| l.id).collect::<Vec<_>>();
+        let found = if a.n_frames() != b.n_frames() {
+            Some(format!("{} frames against {}", a.n_frames(), b.n_frames()))
+        } else if a.frames.frame_utt != b.frames.frame_utt
+            || a.frames.utterances != b.frames.utterances
+        {
+            Some("different utterances or frame order".to_string())
+        } else if common.layers.is_none() && ids(a).is_empty() != ids(b).is_empty() {
+            Some("layers in one capture only".to_string())
+        } else {
+            None
+        };
+        if let Some(found) = found {
+            return Err(ReportError::Mismatch {
+                a: a.dir.display().to_string(),
+                b: b.dir.display().to_string(),
+                found,
+            }
+            .into());
+        }
+    }
+    Ok(caps)
+}
+
+/// The output folder of each capture: the report folder itself for one capture, a
+/// sub-folder named after each for two.
+fn capture_dirs(caps: &[Capture], out: &Path) -> Vec<PathBuf> {
+    if caps.len() == 1 {
+        return vec![out.to_path_buf()];
+    }
+    let mut taken = Vec::new();
+    caps.iter()
+        .map(|c| {
+            let s = write::unique_stem(&c.name, &taken);
+            taken.push(s.clone());
+            out.join(s)
+        })
+        .collect()
+}
+
+/// A figure for the page: the SVG, or the PNG when the SVG is large and the PNG smaller (a
+/// map grid of thousands of points is several MB as SVG and a few hundred kB as PNG).
+fn embed(d: Drawn, section: FigureSection, prefix: &str) -> SvgFigure {
+    let png = (d.svg.len() > SVG_EMBED_LIMIT && d.png.len() < d.svg.len()).then_some(d.png);
+    SvgFigure {
+        title: format!("{prefix}{}", d.title),
+        section,
+        svg: d.svg,
+        png,
+    }
+}
+
+/// Inspect, probe and map one capture, writing each result into `dir`.
+fn analyse_capture(
+    c: &Capture,
+    dir: &Path,
+    prefix: &str,
+    opts: &ReportOptions,
+    common: &CommonOptions,
+    progress: &Progress,
+    clock: &mut Clock,
+) -> crate::Result<CaptureResult> {
+    let mut written = Vec::new();
+    let t = Instant::now();
+    let step = progress.step(&format!("inspect {}", c.name), c.layers.len() as u64);
+    let summary = crate::analysis::inspect::summarise(c);
+    step.inc(c.layers.len() as u64);
+    drop(step);
+    let p = dir.join("inspect.json");
+    write::write_json(&p, &summary)?;
+    written.push(p);
+    clock.done(&format!("inspect {}", c.name), t);
+
+    let t = Instant::now();
+    let probe = crate::analysis::probe::run(c, &opts.probe, common, progress)?;
+    let probe_written = super::probe::write(&probe, dir)?;
+    clock.done(&format!("probe {}", c.name), t);
+
+    let t = Instant::now();
+    let map = crate::analysis::map::run(c, &opts.map, common, progress)?;
+    let map_written = super::map::write(&map, dir)?;
+    clock.done(&format!("map {}", c.name), t);
+
+    let mut figures = Vec::new();
+    for (w, section) in [
+        (probe_written, FigureSection::Probe),
+        (map_written, FigureSection::Maps),
+    ] {
+        written.extend(w.files);
+        figures.extend(w.figures.into_iter().map(|d| embed(d, section, prefix)));
+    }
+    let notes = probe
+        .notes
+        .iter()
+        .map(|n| format!("probe: {n}"))
+        .chain(map.notes.iter().map(|n| format!("map: {n}")))
+        .collect();
+    let options = vec![
+        (format!("probe {}", c.name), probe.options.clone()),
+        (format!("map {}", c.name), map.options.clone()),
+    ];
+    Ok(CaptureResult {
+        section: CaptureSection {
+            summary,
+            probe: probe.records,
+            purity: map.records.clone(),
+            maps: Some(map_set(c, &map)?),
+            notes,
+        },
+        options,
+        figures,
+        written,
+    })
+}
+
+/// The maps of a run with what the explorer shows of each sampled frame.
+fn map_set(c: &Capture, map: &MapReport) -> crate::Result<MapSet> {
+    Ok(MapSet {
+        capture: c.name.clone(),
+        frames: map.frames.clone(),
+        layers: map
+            .layers
+            .iter()
+            .map(|l| (l.layer, l.embedding.clone()))
+            .collect(),
+        info: frame_info(c, &map.frames)?,
+    })
+}
+
+fn page_title(caps: &[Capture]) -> String {
+    match caps {
+        [a] => format!("voxstrata report: {}", a.name),
+        [a, b] => format!("voxstrata report: {} and {}", a.name, b.name),
+        _ => "voxstrata report".to_string(),
+    }
+}
+
+/// Write `run.json`: options, time per step, input hashes and every file written (itself
+/// included), and return it.
+fn write_run_record(
+    opts: &ReportOptions,
+    common: &CommonOptions,
+    caps: &[Capture],
+    timings: Vec<StepTime>,
+    inputs: Vec<FileHash>,
+    mut outputs: Vec<PathBuf>,
+) -> crate::Result<RunRecord> {
+    let run_json = opts.out.join("run.json");
+    outputs.push(run_json.clone());
+    let record = RunRecord {
+        tool: "voxstrata".into(),
+        version: env!("CARGO_PKG_VERSION").into(),
+        captures: caps
+            .iter()
+            .map(|c| CaptureRef {
+                name: c.name.clone(),
+                path: c.dir.display().to_string(),
+            })
+            .collect(),
+        options: serde_json::json!({
+            "out": opts.out.display().to_string(),
+            "force": opts.force,
+            "seed": common.seed,
+            "threads": common.threads,
+            "layers": common.layers.as_ref().map(|l| l.0.clone()),
+            "drop_label": opts.open.labels.drop,
+            "merge_labels": opts.open.labels.merge.len(),
+            "allow_nonfinite": opts.open.allow_nonfinite,
+            "map_method": opts.map.method,
+        }),
+        timings,
+        inputs,
+        outputs: outputs
+            .iter()
+            .map(|p| write::relative(&opts.out, p))
+            .collect(),
+    };
+    write::write_json(&run_json, &record)?;
+    Ok(record)
+}

@@ -1,0 +1,237 @@
+//! The text a command prints when it finishes (and `probe.json` keeps as `summary_text`):
+//! read from records only.
+
+use crate::analysis::inspect::SCAN_ROWS;
+use crate::records::compare::{CompareReport, Estimator, Kernel, MatchBy, ProbeDelta};
+use crate::records::inspect::{ClassCount, Summary as InspectSummary};
+use crate::records::map::Summary as MapSummary;
+use crate::records::probe::ProbeReport;
+
+/// The text printed after a run: best layer per task and where speaker accuracy falls.
+pub fn probe(r: &ProbeReport) -> String {
+    let mut s = String::new();
+    let o = &r.options;
+    s.push_str(&format!(
+        "probe: {} ({} pooling, at most {} training items per fit, {} fold{})\n",
+        r.capture.name,
+        o["pooling"].as_str().unwrap_or("?"),
+        o["max_train_frames"],
+        o["folds"],
+        if o["folds"].as_u64() == Some(1) {
+            ""
+        } else {
+            "s"
+        }
+    ));
+    for b in &r.summary.best {
+        let rec = r
+            .records
+            .iter()
+            .find(|x| x.task == b.task && x.layer == b.layer);
+        let extra = rec
+            .map(|x| {
+                format!(
+                    ", majority {:.3}, control {:.3}, split {}",
+                    x.majority_baseline, x.control_accuracy, x.split
+                )
+            })
+            .unwrap_or_default();
+        s.push_str(&format!(
+            "  {:<10} best layer {:>2}: accuracy {:.3} (95% CI {:.3}-{:.3}{extra})\n",
+            b.task, b.layer, b.accuracy, b.ci_low, b.ci_high
+        ));
+    }
+    match (
+        r.summary.speaker_below_half_layer,
+        r.summary.speaker_half_level,
+    ) {
+        (Some(l), Some(h)) => s.push_str(&format!(
+            "  speaker accuracy first falls below half its range ({h:.3}) at layer {l}\n"
+        )),
+        (None, Some(h)) => s.push_str(&format!(
+            "  speaker accuracy never falls below half its range ({h:.3}) after its peak\n"
+        )),
+        _ => {}
+    }
+    s
+}
+
+/// The text summary printed after a comparison: pairing, most changed matching layers,
+/// significant probe deltas.
+pub fn compare(r: &CompareReport) -> String {
+    use std::fmt::Write;
+    let mut s = String::new();
+    let kernel = match (r.kernel, r.estimator) {
+        (Kernel::Linear, Estimator::Full) => "linear CKA",
+        (Kernel::Linear, Estimator::Minibatch) => "linear CKA (minibatch, unbiased HSIC)",
+        (Kernel::Rbf, _) => "RBF CKA (median-distance bandwidth)",
+    };
+    let _ = writeln!(
+        s,
+        "compared {} ({} layers) with {} ({} layers): {} on {} frames",
+        r.captures[0].name,
+        r.layers_a.len(),
+        r.captures[1].name,
+        r.layers_b.len(),
+        kernel,
+        r.pairing.used
+    );
+    if r.pairing.match_by == MatchBy::Utterance {
+        let _ = writeln!(
+            s,
+            "paired by utterance: {} frames paired, {} of A and {} of B dropped",
+            r.pairing.paired, r.pairing.dropped_a, r.pairing.dropped_b
+        );
+    }
+    let m = r.matching_layers();
+    if m.is_empty() {
+        let _ = writeln!(
+            s,
+            "no layer number is present in both captures; see the heatmap for all pairs"
+        );
+    } else {
+        let _ = writeln!(
+            s,
+            "most changed layers (1 - CKA between the same layer number in A and B):"
+        );
+        for (l, c) in m.iter().take(5) {
+            let _ = writeln!(s, "  layer {l:>3}  1 - CKA = {:.4}", 1.0 - c);
+        }
+    }
+    let sig: Vec<&ProbeDelta> = r
+        .probe_delta
+        .iter()
+        .filter(|d| d.mcnemar_p < 0.05)
+        .collect();
+    if !r.probe_delta.is_empty() {
+        if sig.is_empty() {
+            let _ = writeln!(s, "no probe delta is significant (McNemar p < 0.05)");
+        } else {
+            let _ = writeln!(s, "significant probe deltas (McNemar p < 0.05):");
+            for d in sig {
+                let _ = writeln!(
+                    s,
+                    "  layer {:>3} {:<10} {:.3} -> {:.3}  delta {:+.3} [{:+.3}, {:+.3}]  p = {:.2e}",
+                    d.layer, d.task, d.accuracy_a, d.accuracy_b, d.delta, d.ci_low, d.ci_high, d.mcnemar_p
+                );
+            }
+        }
+    }
+    for n in &r.notes {
+        let _ = writeln!(s, "note: {n}");
+    }
+    s
+}
+
+/// Two lines for the terminal after a map run.
+pub fn map(s: &MapSummary) -> String {
+    let mut out = String::new();
+    match (s.speaker_half_fall_layer, s.speaker_max, s.speaker_min) {
+        (Some(l), Some(mx), Some(mn)) => out.push_str(&format!(
+            "speaker purity (10-NN) falls half way from {:.3} (layer {}) to {:.3} (layer {}) at layer {}\n",
+            mx.1, mx.0, mn.1, mn.0, l
+        )),
+        (_, Some(mx), _) => out.push_str(&format!(
+            "speaker purity (10-NN) does not fall after its maximum {:.3} at layer {}\n",
+            mx.1, mx.0
+        )),
+        _ => out.push_str("speaker purity: not available\n"),
+    }
+    match s.phone_peak {
+        Some((l, v)) => out.push_str(&format!(
+            "phone purity (10-NN) peaks at layer {l}: {v:.3}\n"
+        )),
+        None => out.push_str("phone purity: no phone label\n"),
+    }
+    out
+}
+
+/// Human-readable size.
+pub fn human_bytes(b: u64) -> String {
+    let units = ["B", "KiB", "MiB", "GiB", "TiB"];
+    let mut v = b as f64;
+    let mut u = 0;
+    while v >= 1024.0 && u < units.len() - 1 {
+        v /= 1024.0;
+        u += 1;
+    }
+    if u == 0 {
+        format!("{b} B")
+    } else {
+        format!("{v:.1} {}", units[u])
+    }
+}
+
+/// The summary as text for a terminal.
+pub fn inspect(s: &InspectSummary) -> String {
+    use std::fmt::Write;
+    let mut o = String::new();
+    let _ = writeln!(o, "capture   {}  ({})", s.name, s.path);
+    let _ = writeln!(
+        o,
+        "frames    {}  in {} utterances from {} speakers  (labels: {}, hop {} s)",
+        s.frames, s.utterances, s.speakers, s.label_source, s.hop_s
+    );
+    let _ = writeln!(
+        o,
+        "size      {} on disk; a probe run needs about {}",
+        human_bytes(s.bytes_on_disk),
+        human_bytes(s.probe_memory_estimate)
+    );
+    if let serde_json::Value::Object(m) = &s.notes {
+        for (k, v) in m {
+            let _ = writeln!(
+                o,
+                "note      {k}: {}",
+                v.as_str()
+                    .map(str::to_string)
+                    .unwrap_or_else(|| v.to_string())
+            );
+        }
+    }
+    let _ = writeln!(o, "\nlayers ({})", s.layers.len());
+    let _ = writeln!(
+        o,
+        "  {:>5}  {:>6}  {:<8}  {:<26}  file",
+        "layer", "dim", "dtype", "layout"
+    );
+    for l in &s.layers {
+        let _ = writeln!(
+            o,
+            "  {:>5}  {:>6}  {:<8}  {:<26}  {}",
+            l.layer, l.dim, l.dtype, l.layout, l.file
+        );
+    }
+    let _ = writeln!(o, "\nlabel tasks ({})", s.tasks.len());
+    for t in &s.tasks {
+        let show = |v: &[ClassCount]| {
+            v.iter()
+                .map(|c| format!("{} {}", c.label, c.frames))
+                .collect::<Vec<_>>()
+                .join(", ")
+        };
+        let _ = writeln!(
+            o,
+            "  {:<10} {:>4} classes  {:>8} labelled  {:>7} unlabelled   smallest: {}   largest: {}",
+            t.task,
+            t.classes,
+            t.labelled_frames,
+            t.unlabelled_frames,
+            show(&t.smallest),
+            show(&t.largest)
+        );
+    }
+    if s.warnings.is_empty() {
+        let _ = writeln!(
+            o,
+            "\nno warnings (NaN/Inf and constant columns checked on {} sampled frames per layer)",
+            SCAN_ROWS.min(s.frames)
+        );
+    } else {
+        let _ = writeln!(o, "\nwarnings ({})", s.warnings.len());
+        for w in &s.warnings {
+            let _ = writeln!(o, "  - {w}");
+        }
+    }
+    o
+}

@@ -1,0 +1,84 @@
+//! Atomic files: every output is written under a temporary name (`.NAME.partial-PID`) in the
+//! same folder and renamed into place, so an interrupted run never leaves a half-written file
+//! under a final name; a later run removes the temporaries a killed run left behind.
+
+use std::io::Write;
+use std::path::Path;
+
+use super::{io, OutputError};
+
+/// Marker in the names of temporary files.
+pub const PARTIAL_MARK: &str = ".partial-";
+
+/// Write `bytes` to `path` through a temporary file in the same folder and a rename.
+pub fn write_atomic(path: &Path, bytes: &[u8]) -> Result<(), OutputError> {
+    let dir = path
+        .parent()
+        .filter(|p| !p.as_os_str().is_empty())
+        .unwrap_or(Path::new("."));
+    std::fs::create_dir_all(dir).map_err(|e| io(dir, e))?;
+    let name = path
+        .file_name()
+        .map(|n| n.to_string_lossy().into_owned())
+        .unwrap_or_default();
+    let tmp = dir.join(format!(".{name}{PARTIAL_MARK}{}", std::process::id()));
+    let res = (|| {
+        let mut f = std::fs::File::create(&tmp)?;
+        f.write_all(bytes)?;
+        f.sync_all()?;
+        std::fs::rename(&tmp, path)
+    })();
+    if let Err(e) = res {
+        let _ = std::fs::remove_file(&tmp);
+        return Err(io(path, e));
+    }
+    Ok(())
+}
+
+/// Remove temporary files (`.NAME.partial-PID`) that a killed earlier run left behind in
+/// `dir` and its sub-folders; a SIGKILL between create and rename cannot be cleaned up by the
+/// run itself.
+pub fn remove_stale_partials(dir: &Path) {
+    let Ok(rd) = std::fs::read_dir(dir) else {
+        return;
+    };
+    for e in rd.flatten() {
+        let path = e.path();
+        let name = e.file_name();
+        let name = name.to_string_lossy();
+        if path.is_dir() {
+            remove_stale_partials(&path);
+        } else if name.starts_with('.') && name.contains(PARTIAL_MARK) && path.is_file() {
+            let _ = std::fs::remove_file(path);
+        }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn atomic_write_leaves_no_temporary() {
+        let d = tempfile::tempdir().unwrap();
+        write_atomic(&d.path().join("x.json"), b"{}").unwrap();
+        let names: Vec<_> = std::fs::read_dir(d.path())
+            .unwrap()
+            .map(|e| e.unwrap().file_name())
+            .collect();
+        assert_eq!(names, vec![std::ffi::OsString::from("x.json")]);
+    }
+
+    #[test]
+    fn stale_partials_are_removed_in_sub_folders_too() {
+        let d = tempfile::tempdir().unwrap();
+        std::fs::create_dir_all(d.path().join("maps")).unwrap();
+        std::fs::write(d.path().join(".a.json.partial-12"), b"{").unwrap();
+        std::fs::write(d.path().join("maps/.layer_00.npy.partial-12"), b"x").unwrap();
+        std::fs::write(d.path().join("keep.json"), b"{}").unwrap();
+        remove_stale_partials(d.path());
+        assert!(!d.path().join(".a.json.partial-12").exists());
+        assert!(!d.path().join("maps/.layer_00.npy.partial-12").exists());
+        assert!(d.path().join("keep.json").exists());
+    }
+}
