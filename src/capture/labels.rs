@@ -77,6 +77,17 @@ impl FrameTable {
         self.tasks.iter().find(|t| t.name == name)
     }
 
+    /// The tasks analysed when none are named: `phone` (when the capture has it), then
+    /// `speaker`.
+    pub fn default_tasks(&self) -> Vec<String> {
+        let mut v = Vec::new();
+        if self.task("phone").is_some() {
+            v.push("phone".to_string());
+        }
+        v.push("speaker".to_string());
+        v
+    }
+
     /// Names of all tasks.
     pub fn task_names(&self) -> Vec<String> {
         self.tasks.iter().map(|t| t.name.clone()).collect()

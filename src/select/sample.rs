@@ -1,10 +1,13 @@
-//! Stratified frame sample: frames grouped into cells by their labels (speaker × phone), up to
-//! `per_cell` frames drawn from each cell by a seeded shuffle, so every speaker and phone is
-//! represented and big classes do not crowd out small ones. The same sample serves every
-//! layer, so panels and metrics are comparable.
+//! Every subsample of the tool, seeded: [`stratified`] draws the map's frame sample (up to
+//! `per_cell` frames from each speaker × phone cell, so every speaker and phone is represented
+//! and big classes do not crowd out small ones; the same sample serves every layer);
+//! [`by_class`] caps a probe's training or test items keeping each class's share (probe and
+//! compare alike); [`uniform_sorted`] draws paired frames for CKA.
 
 use std::collections::BTreeMap;
 
+use rand::seq::index::sample;
+use rand::seq::SliceRandom;
 use rand::{Rng, SeedableRng};
 use rand_chacha::ChaCha8Rng;
 
@@ -71,6 +74,39 @@ pub fn stratified(strata: &[&[u32]], per_cell: usize, max_total: usize, seed: u6
         short_cells,
         per_cell: quota,
     }
+}
+
+/// Stratified subsample of `train` down to about `max` items, same share of every class
+/// (at least one item of each), seeded; returned sorted.
+pub fn by_class(train: &[usize], label: &[u32], max: usize, seed: u64) -> Vec<usize> {
+    if max == 0 || train.len() <= max {
+        return train.to_vec();
+    }
+    let mut by_class: std::collections::BTreeMap<u32, Vec<usize>> = Default::default();
+    for &i in train {
+        by_class.entry(label[i]).or_default().push(i);
+    }
+    let mut rng = ChaCha8Rng::seed_from_u64(seed);
+    let share = max as f64 / train.len() as f64;
+    let mut out = Vec::with_capacity(max + by_class.len());
+    for (_, mut v) in by_class {
+        let q = ((v.len() as f64 * share).round() as usize).clamp(1, v.len());
+        v.shuffle(&mut rng);
+        out.extend_from_slice(&v[..q]);
+    }
+    out.sort_unstable();
+    out
+}
+
+/// Seeded uniform sample of `k` of `n` indices, sorted (all of them when k ≥ n).
+pub fn uniform_sorted(n: usize, k: usize, seed: u64) -> Vec<usize> {
+    if k >= n {
+        return (0..n).collect();
+    }
+    let mut rng = ChaCha8Rng::seed_from_u64(seed);
+    let mut v = sample(&mut rng, n, k).into_vec();
+    v.sort_unstable();
+    v
 }
 
 #[cfg(test)]

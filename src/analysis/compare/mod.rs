@@ -19,7 +19,6 @@ pub mod delta;
 use std::collections::HashMap;
 
 use ndarray::Array2;
-use rand::seq::index::sample;
 use rand_chacha::rand_core::SeedableRng;
 use rand_chacha::ChaCha8Rng;
 use serde::Serialize;
@@ -294,17 +293,6 @@ pub fn pair_frames(a: &Capture, b: &Capture, how: MatchBy) -> Result<Pairing, Co
     })
 }
 
-/// Seeded uniform sample of `k` of `n` indices, sorted (all of them when k ≥ n).
-pub fn sample_sorted(n: usize, k: usize, seed: u64) -> Vec<usize> {
-    if k >= n {
-        return (0..n).collect();
-    }
-    let mut rng = ChaCha8Rng::seed_from_u64(seed);
-    let mut v = sample(&mut rng, n, k).into_vec();
-    v.sort_unstable();
-    v
-}
-
 /// Reads one layer's rows for the pairs in use: the whole file when the rows are 0..n.
 struct RowReader<'a> {
     cap: &'a Capture,
@@ -361,7 +349,7 @@ pub fn run(
             Some(k)
         }
     };
-    let keep = sample_sorted(
+    let keep = crate::select::sample::uniform_sorted(
         pairing.paired,
         limit.unwrap_or(usize::MAX),
         common.seed ^ 0xc0a1_0001,
@@ -432,7 +420,7 @@ pub fn run(
             })
             .collect();
         // Probes use all paired frames or the --max-frames sample (not the RBF subsample).
-        let keep = sample_sorted(
+        let keep = crate::select::sample::uniform_sorted(
             pairing.paired,
             opts.max_frames.unwrap_or(usize::MAX),
             common.seed ^ 0xc0a1_0001,
@@ -630,11 +618,9 @@ fn plan_deltas(
     use crate::select::split::{make_split, SplitKind, SplitOptions};
     let fa = &a.frames;
     let names: Vec<String> = if opts.tasks.is_empty() {
-        let mut v = Vec::new();
-        if fa.task("phone").is_some() && b.frames.task("phone").is_some() {
-            v.push("phone".to_string());
-        }
-        v.push("speaker".to_string());
+        // Paired captures carry the same label columns (checked by the pairing).
+        let mut v = fa.default_tasks();
+        v.retain(|n| b.frames.task(n).is_some() || n == "speaker");
         v
     } else {
         opts.tasks.clone()
@@ -805,16 +791,14 @@ fn probe_deltas(
         let xa = a.read_layer_rows(ia, rows_a)?;
         let xb = b.read_layer_rows(ib, rows_b)?;
         for (ti, p) in plans.iter().enumerate() {
-            // Training rows capped as the probe stage caps them (seeded uniform subsample).
-            let cap = popts.max_train_frames;
-            let train: Vec<usize> = if cap > 0 && p.train.len() > cap {
-                sample_sorted(p.train.len(), cap, mix(common.seed, 700 + ti as u64))
-                    .into_iter()
-                    .map(|k| p.train[k])
-                    .collect()
-            } else {
-                p.train.clone()
-            };
+            // Training rows capped as the probe stage caps them (the same stratified
+            // subsample, each class keeping its share).
+            let train = crate::select::sample::by_class(
+                &p.train,
+                &p.labels,
+                popts.max_train_frames,
+                mix(common.seed, 700 + ti as u64),
+            );
             let input = delta::DeltaInput {
                 layer,
                 task: &p.name,

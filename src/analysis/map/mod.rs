@@ -124,10 +124,9 @@ impl Default for MapOptions {
 
 fn check_color_by(cap: &Capture, opts: &MapOptions) -> Result<Vec<String>, MapError> {
     let names = cap.frames.task_names();
-    let mut out: Vec<String> = vec!["speaker".into()];
-    if names.iter().any(|n| n == "phone") {
-        out.push("phone".into());
-    }
+    // The default tasks, speaker first (the maps' first question is who is speaking).
+    let mut out: Vec<String> = cap.frames.default_tasks();
+    out.sort_by_key(|n| n != "speaker");
     for c in &opts.color_by {
         if !names.contains(c) {
             return Err(MapError::UnknownLabel {

@@ -129,8 +129,10 @@ impl Default for ProbeOptions {
             folds: 1,
             max_train_frames: 20_000,
             max_test_frames: 50_000,
-            // 1e-4 .. 1e-1 per item: from a nearly unpenalised fit to a strong one (common
-            // practice for probes; the grid spans the usual C = 0.01..10 at n ~ 1 000..10 000).
+            // α = 1e-1 .. 1e-4 per item, from a strong penalty to a nearly unpenalised fit
+            // (common practice for probes). As C = 1/(α·n) that is C = 0.01..10 at n = 1 000
+            // training items, 0.001..1 at n = 10 000 and 0.0005..0.5 at the default cap of
+            // 20 000.
             alphas: vec![1e-1, 1e-2, 1e-3, 1e-4],
             inner_fraction: 0.2,
             tol: 1e-4,
@@ -390,28 +392,6 @@ fn input(msg: String) -> Error {
     Error::Probe(ProbeError::Input(msg))
 }
 
-/// Stratified subsample of `train` down to about `max` items, same share of every class
-/// (at least one item of each), seeded; returned sorted.
-fn stratified_subsample(train: &[usize], label: &[u32], max: usize, seed: u64) -> Vec<usize> {
-    if max == 0 || train.len() <= max {
-        return train.to_vec();
-    }
-    let mut by_class: std::collections::BTreeMap<u32, Vec<usize>> = Default::default();
-    for &i in train {
-        by_class.entry(label[i]).or_default().push(i);
-    }
-    let mut rng = ChaCha8Rng::seed_from_u64(seed);
-    let share = max as f64 / train.len() as f64;
-    let mut out = Vec::with_capacity(max + by_class.len());
-    for (_, mut v) in by_class {
-        let q = ((v.len() as f64 * share).round() as usize).clamp(1, v.len());
-        v.shuffle(&mut rng);
-        out.extend_from_slice(&v[..q]);
-    }
-    out.sort_unstable();
-    out
-}
-
 fn plan_tasks(
     cap: &Capture,
     opts: &ProbeOptions,
@@ -420,12 +400,7 @@ fn plan_tasks(
 ) -> Result<Vec<TaskPlan>, Error> {
     let t = &cap.frames;
     let names: Vec<String> = if opts.tasks.is_empty() {
-        let mut v = Vec::new();
-        if t.task("phone").is_some() {
-            v.push("phone".to_string());
-        }
-        v.push("speaker".to_string());
-        v
+        t.default_tasks()
     } else {
         opts.tasks.clone()
     };
@@ -578,13 +553,13 @@ fn plan_tasks(
             .iter()
             .enumerate()
             .map(|(fi, f)| Fold {
-                train: stratified_subsample(
+                train: crate::select::sample::by_class(
                     &f.train,
                     &items.label,
                     opts.max_train_frames,
                     mix(seed, 200 + (ti * 1000 + fi) as u64),
                 ),
-                test: stratified_subsample(
+                test: crate::select::sample::by_class(
                     &f.test,
                     &items.label,
                     opts.max_test_frames,

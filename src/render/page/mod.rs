@@ -800,7 +800,7 @@ fn methods_html(out: &mut String, inp: &ReportInputs) {
                 .collect();
             let _ = write!(
                 p,
-                "On “{name}”, a linear probe (multinomial logistic regression) was trained on every layer for {}; each accuracy is shown with its 95% interval beside the majority-class baseline and a control task with shuffled labels (Hewitt & Liang 2019). ",
+                "On “{name}”, a linear probe (multinomial logistic regression) was trained on every layer for {}; each accuracy is shown with its 95% interval beside the majority-class baseline and a control task (Hewitt & Liang 2019): every labelled segment (every utterance for the speaker task) was given a random label drawn from the training class frequencies, and the same probe with the same penalty was trained on it; selectivity is accuracy minus control accuracy. ",
                 parts.join(", ")
             );
             let opt = inp
@@ -855,10 +855,10 @@ fn methods_html(out: &mut String, inp: &ReportInputs) {
                     p,
                     "Its 2-D maps place the same {} sampled frames (up to {} per speaker × phone cell) for each of {} layers, drawn by {how}; purity is measured on those frames with k = {} nearest neighbours and k-means with {} clusters (Hsu et al. 2021). ",
                     mp.frames.len(),
-                    num(&o["per_label"]).unwrap_or("?".into()),
+                    num(&o["per_cell_used"]).unwrap_or("?".into()),
                     mp.layers.len(),
-                    num(&o["knn_k"]).unwrap_or("?".into()),
-                    num(&o["kmeans_k"]).unwrap_or("?".into()),
+                    num(&o["knn_k_used"]).unwrap_or("?".into()),
+                    num(&o["kmeans_k_used"]).unwrap_or("?".into()),
                 );
             }
             None => {
