@@ -79,7 +79,7 @@ fn same_frames_twice_give_unit_diagonal() {
             code,
             stdout,
             stderr,
-        } = run_text(&["compare", s(x), s(y), "--out", s(&out), "--quiet"]);
+        } = run_text(["compare", s(x), s(y), "--out", s(&out), "--quiet"]);
         assert_eq!(code, 0, "{stderr}");
         assert!(stdout.contains("most changed layers"), "{stdout}");
         let j = read_json(&out.join("compare.json"));
@@ -119,7 +119,7 @@ fn different_label_reports_the_first_differing_row() {
     write_capture(&t.path().join("a"), &fr, &ls);
     write_capture(&t.path().join("b"), &fr_b, &ls);
     let out = t.path().join("out");
-    let Ran { code, stderr, .. } = run_text(&[
+    let Ran { code, stderr, .. } = run_text([
         "compare",
         s(&t.path().join("a")),
         s(&t.path().join("b")),
@@ -152,7 +152,7 @@ fn shuffled_utterances_pair_by_utterance() {
     write_capture(&b, &fr_b, &ls_b);
     // Row by row the tables differ: exit 2 naming frame 0's utterance.
     let Ran { code, stderr, .. } =
-        run_text(&["compare", s(&a), s(&b), "--out", s(&t.path().join("o1"))]);
+        run_text(["compare", s(&a), s(&b), "--out", s(&t.path().join("o1"))]);
     assert_eq!(code, 2);
     assert!(stderr.contains("frame 0, utterance"), "{stderr}");
     let out = t.path().join("o2");
@@ -160,7 +160,7 @@ fn shuffled_utterances_pair_by_utterance() {
         code,
         stdout,
         stderr,
-    } = run_text(&[
+    } = run_text([
         "compare",
         s(&a),
         s(&b),
@@ -198,7 +198,7 @@ fn mismatched_speaker_under_utterance_matching_is_refused() {
     }
     write_capture(&t.path().join("a"), &fr, &ls);
     write_capture(&t.path().join("b"), &fr_b, &ls);
-    let Ran { code, stderr, .. } = run_text(&[
+    let Ran { code, stderr, .. } = run_text([
         "compare",
         s(&t.path().join("a")),
         s(&t.path().join("b")),
@@ -221,7 +221,7 @@ fn layer_out_of_range_is_bad_input() {
     let ls = layers(fr.len());
     let a = t.path().join("a");
     write_capture(&a, &fr, &ls);
-    let Ran { code, stderr, .. } = run_text(&[
+    let Ran { code, stderr, .. } = run_text([
         "compare",
         s(&a),
         s(&a),
@@ -252,7 +252,7 @@ fn rbf_and_minibatch_options_run_and_keep_the_diagonal() {
         let out = t.path().join(kernel);
         let mut args = vec!["compare", s(&a), s(&b), "--out", s(&out), "--quiet"];
         args.extend(extra);
-        let Ran { code, stderr, .. } = run_text(&args);
+        let Ran { code, stderr, .. } = run_text(args);
         assert_eq!(code, 0, "{stderr}");
         let j = read_json(&out.join("compare.json"));
         assert_eq!(j["records"][0]["kernel"], kernel);
@@ -269,7 +269,7 @@ fn demo_final_against_early_changes_the_top_layer_most() {
     let (early, fin) = (demo_dir().join("early"), demo_dir().join("final"));
     let t = tempfile::tempdir().unwrap();
     let out = t.path().join("o");
-    let Ran { code, stderr, .. } = run_text(&[
+    let Ran { code, stderr, .. } = run_text([
         "compare",
         s(&fin),
         s(&early),
@@ -329,7 +329,7 @@ fn probe_deltas_find_the_checkpoint_that_encodes_phones() {
         code,
         stdout,
         stderr,
-    } = run_text(&[
+    } = run_text([
         "compare",
         s(&a),
         s(&b),

@@ -72,7 +72,7 @@ fn every_hostile_input_gets_its_exit_code_and_message_without_panic() {
                     .replace("{out}", out.to_str().unwrap())
             })
             .collect();
-        let o = run(&args);
+        let o = run(args);
         let err = String::from_utf8_lossy(&o.stderr);
         let code = o.status.code().unwrap_or(-1);
         let mut why = Vec::new();

@@ -39,7 +39,7 @@ fn good_capture(dir: &Path) {
 fn inspect_reports_layers_tasks_and_sizes() {
     let d = tempfile::tempdir().unwrap();
     good_capture(d.path());
-    let out = run(&["inspect", d.path().to_str().unwrap(), "--json"]);
+    let out = run(["inspect", d.path().to_str().unwrap(), "--json"]);
     assert!(
         out.status.success(),
         "{}",
@@ -63,7 +63,7 @@ fn inspect_reports_layers_tasks_and_sizes() {
     assert_eq!(v["tasks"][0]["largest"][0]["frames"], 12);
     assert_eq!(v["bytes_on_disk"].as_u64().unwrap(), 3 * (128 + 60 * 4 * 4));
     // Text form names the IPA labels as they are.
-    let text = run(&["inspect", d.path().to_str().unwrap()]);
+    let text = run(["inspect", d.path().to_str().unwrap()]);
     let s = String::from_utf8(text.stdout).unwrap();
     assert!(s.contains("phone") && s.contains("ʃ"), "{s}");
 }
@@ -89,7 +89,7 @@ fn inspect_reads_segments_with_hop_from_capture_toml() {
         "utterance\tstart_s\tend_s\tlabel\nu1\t0\t0.03\tsil\nu1\t0.03\t0.06\ta\nu2\t0.0\t0.02\ts\n",
     )
     .unwrap();
-    let out = run(&[
+    let out = run([
         "inspect",
         d.path().to_str().unwrap(),
         "--json",
@@ -117,7 +117,7 @@ fn inspect_reads_a_single_3d_stack() {
     }
     let a = ndarray::Array3::<f32>::from_shape_fn((5, 60, 2), |(l, i, j)| (l * 100 + i + j) as f32);
     ndarray_npy::write_npy(d.path().join("activations.npy"), &a).unwrap();
-    let out = run(&["inspect", d.path().to_str().unwrap(), "--json"]);
+    let out = run(["inspect", d.path().to_str().unwrap(), "--json"]);
     assert!(
         out.status.success(),
         "{}",
@@ -134,7 +134,7 @@ fn inspect_warns_about_nan_and_constant_columns_and_tiny_classes() {
     let mut a = Array2::from_shape_fn((60, 4), |(i, j)| (i * j) as f32);
     a[[7, 2]] = f32::NAN;
     write_layer(d.path(), 1, &a);
-    let out = run(&["inspect", d.path().to_str().unwrap(), "--json"]);
+    let out = run(["inspect", d.path().to_str().unwrap(), "--json"]);
     assert!(out.status.success());
     let v: serde_json::Value = serde_json::from_slice(&out.stdout).unwrap();
     let w: Vec<String> = v["warnings"]
@@ -374,7 +374,7 @@ fn bad_inputs_exit_2_with_a_message_naming_the_problem() {
         let d = tempfile::tempdir().unwrap();
         good_capture(d.path());
         setup(d.path());
-        let out = run(&["inspect", d.path().to_str().unwrap()]);
+        let out = run(["inspect", d.path().to_str().unwrap()]);
         let err = String::from_utf8_lossy(&out.stderr).to_string();
         if out.status.code() != Some(2) {
             failures.push(format!(
@@ -397,14 +397,14 @@ fn bad_inputs_exit_2_with_a_message_naming_the_problem() {
 
 #[test]
 fn missing_capture_folder_is_bad_input() {
-    let out = run(&["inspect", "/nonexistent/capture"]);
+    let out = run(["inspect", "/nonexistent/capture"]);
     assert_eq!(out.status.code(), Some(2));
     assert!(String::from_utf8_lossy(&out.stderr).contains("/nonexistent/capture"));
 }
 
 #[test]
 fn unknown_option_is_a_usage_error() {
-    let out = run(&["inspect", ".", "--no-such-option"]);
+    let out = run(["inspect", ".", "--no-such-option"]);
     assert_eq!(out.status.code(), Some(2));
 }
 
