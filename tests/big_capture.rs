@@ -2,9 +2,12 @@
 //! nothing on disk): commands that sample frames must not load the layer whole. Peak memory is
 //! the binary's own peak RSS (`VmHWM`, printed with VOXSTRATA_REPORT_PEAK_RSS=1). Linux only.
 
+mod common;
+
 use std::io::Write;
 use std::path::Path;
-use std::process::Command;
+
+use common::{npy_bytes, run_env};
 
 const FRAMES: usize = 800_000;
 const DIM: usize = 800;
@@ -13,17 +16,11 @@ const DIM: usize = 800;
 const SAMPLING_PEAK_KIB: u64 = 300 * 1024;
 
 fn write_sparse_capture(dir: &Path) {
-    let mut h = format!("{{'descr': '<f4', 'fortran_order': False, 'shape': ({FRAMES}, {DIM}), }}");
-    while (10 + h.len() + 1) % 64 != 0 {
-        h.push(' ');
-    }
-    h.push('\n');
+    let header = npy_bytes("<f4", &format!("({FRAMES}, {DIM})"), 1, &[]);
     let mut f = std::fs::File::create(dir.join("layer_00.npy")).unwrap();
-    f.write_all(b"\x93NUMPY\x01\x00").unwrap();
-    f.write_all(&(h.len() as u16).to_le_bytes()).unwrap();
-    f.write_all(h.as_bytes()).unwrap();
+    f.write_all(&header).unwrap();
     // Extend without writing: the hole reads back as zeros (valid f32 0.0).
-    f.set_len((10 + h.len() + FRAMES * DIM * 4) as u64).unwrap();
+    f.set_len((header.len() + FRAMES * DIM * 4) as u64).unwrap();
     let mut tsv = std::io::BufWriter::new(std::fs::File::create(dir.join("frames.tsv")).unwrap());
     writeln!(tsv, "utterance\tspeaker\tphone").unwrap();
     for i in 0..FRAMES {
@@ -35,12 +32,10 @@ fn write_sparse_capture(dir: &Path) {
 
 /// Run the binary and return its peak RSS in KiB.
 fn peak_kib(args: &[&str]) -> u64 {
-    let o = Command::new(env!("CARGO_BIN_EXE_voxstrata"))
-        .env("VOXSTRATA_REPORT_PEAK_RSS", "1")
-        .arg("--quiet")
-        .args(args)
-        .output()
-        .unwrap();
+    let o = run_env(
+        std::iter::once(&"--quiet").chain(args),
+        &[("VOXSTRATA_REPORT_PEAK_RSS", "1")],
+    );
     let err = String::from_utf8_lossy(&o.stderr);
     assert!(o.status.success(), "{args:?} failed: {err}");
     let line = err

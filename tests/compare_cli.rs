@@ -1,11 +1,11 @@
 //! `voxstrata compare` end to end on small synthetic captures written by the test.
 
-use std::path::{Path, PathBuf};
-use std::process::Command;
+mod common;
 
+use std::path::Path;
+
+use common::{demo_dir, read_json, run_text, s, Frames, Ran};
 use ndarray::Array2;
-
-const BIN: &str = env!("CARGO_BIN_EXE_voxstrata");
 
 /// One synthetic frame: utterance, speaker, phone.
 #[derive(Clone)]
@@ -47,28 +47,11 @@ fn layers(n: usize) -> Vec<Array2<f32>> {
 }
 
 fn write_capture(dir: &Path, fr: &[Frame], ls: &[Array2<f32>]) {
-    std::fs::create_dir_all(dir).unwrap();
-    let mut tsv = String::from("utterance\tspeaker\tphone\n");
+    let mut frames = Frames::new(&["utterance", "speaker", "phone"]);
     for f in fr {
-        tsv.push_str(&format!("{}\t{}\t{}\n", f.utt, f.spk, f.phone));
+        frames.push([&f.utt, &f.spk, &f.phone]);
     }
-    std::fs::write(dir.join("frames.tsv"), tsv).unwrap();
-    for (i, l) in ls.iter().enumerate() {
-        ndarray_npy::write_npy(dir.join(format!("layer_{i:02}.npy")), l).unwrap();
-    }
-}
-
-fn run(args: &[&str]) -> (i32, String, String) {
-    let out = Command::new(BIN).args(args).output().unwrap();
-    (
-        out.status.code().unwrap_or(-1),
-        String::from_utf8_lossy(&out.stdout).into(),
-        String::from_utf8_lossy(&out.stderr).into(),
-    )
-}
-
-fn read_json(p: &Path) -> serde_json::Value {
-    serde_json::from_str(&std::fs::read_to_string(p).unwrap()).unwrap()
+    common::write_capture(dir, &frames, ls);
 }
 
 fn cka(j: &serde_json::Value, la: u64, lb: u64) -> f64 {
@@ -82,10 +65,6 @@ fn cka(j: &serde_json::Value, la: u64, lb: u64) -> f64 {
         .unwrap()
 }
 
-fn s(p: &Path) -> &str {
-    p.to_str().unwrap()
-}
-
 #[test]
 fn same_frames_twice_give_unit_diagonal() {
     let t = tempfile::tempdir().unwrap();
@@ -96,7 +75,11 @@ fn same_frames_twice_give_unit_diagonal() {
     write_capture(&b, &fr, &ls);
     for (x, y, name) in [(&a, &b, "ab"), (&a, &a, "aa")] {
         let out = t.path().join(name);
-        let (code, stdout, stderr) = run(&["compare", s(x), s(y), "--out", s(&out), "--quiet"]);
+        let Ran {
+            code,
+            stdout,
+            stderr,
+        } = run_text(["compare", s(x), s(y), "--out", s(&out), "--quiet"]);
         assert_eq!(code, 0, "{stderr}");
         assert!(stdout.contains("most changed layers"), "{stdout}");
         let j = read_json(&out.join("compare.json"));
@@ -136,7 +119,7 @@ fn different_label_reports_the_first_differing_row() {
     write_capture(&t.path().join("a"), &fr, &ls);
     write_capture(&t.path().join("b"), &fr_b, &ls);
     let out = t.path().join("out");
-    let (code, _, stderr) = run(&[
+    let Ran { code, stderr, .. } = run_text([
         "compare",
         s(&t.path().join("a")),
         s(&t.path().join("b")),
@@ -168,11 +151,16 @@ fn shuffled_utterances_pair_by_utterance() {
     write_capture(&a, &fr, &ls);
     write_capture(&b, &fr_b, &ls_b);
     // Row by row the tables differ: exit 2 naming frame 0's utterance.
-    let (code, _, stderr) = run(&["compare", s(&a), s(&b), "--out", s(&t.path().join("o1"))]);
+    let Ran { code, stderr, .. } =
+        run_text(["compare", s(&a), s(&b), "--out", s(&t.path().join("o1"))]);
     assert_eq!(code, 2);
     assert!(stderr.contains("frame 0, utterance"), "{stderr}");
     let out = t.path().join("o2");
-    let (code, stdout, stderr) = run(&[
+    let Ran {
+        code,
+        stdout,
+        stderr,
+    } = run_text([
         "compare",
         s(&a),
         s(&b),
@@ -210,7 +198,7 @@ fn mismatched_speaker_under_utterance_matching_is_refused() {
     }
     write_capture(&t.path().join("a"), &fr, &ls);
     write_capture(&t.path().join("b"), &fr_b, &ls);
-    let (code, _, stderr) = run(&[
+    let Ran { code, stderr, .. } = run_text([
         "compare",
         s(&t.path().join("a")),
         s(&t.path().join("b")),
@@ -233,7 +221,7 @@ fn layer_out_of_range_is_bad_input() {
     let ls = layers(fr.len());
     let a = t.path().join("a");
     write_capture(&a, &fr, &ls);
-    let (code, _, stderr) = run(&[
+    let Ran { code, stderr, .. } = run_text([
         "compare",
         s(&a),
         s(&a),
@@ -264,16 +252,12 @@ fn rbf_and_minibatch_options_run_and_keep_the_diagonal() {
         let out = t.path().join(kernel);
         let mut args = vec!["compare", s(&a), s(&b), "--out", s(&out), "--quiet"];
         args.extend(extra);
-        let (code, _, stderr) = run(&args);
+        let Ran { code, stderr, .. } = run_text(args);
         assert_eq!(code, 0, "{stderr}");
         let j = read_json(&out.join("compare.json"));
         assert_eq!(j["records"][0]["kernel"], kernel);
         assert!((cka(&j, 2, 2) - 1.0).abs() < 1e-6);
     }
-}
-
-fn demo_dir() -> PathBuf {
-    Path::new(env!("CARGO_MANIFEST_DIR")).join("demo_activations")
 }
 
 /// On the shipped demo, training moved the upper layers furthest from their early state: the
@@ -283,16 +267,9 @@ fn demo_dir() -> PathBuf {
 #[test]
 fn demo_final_against_early_changes_the_top_layer_most() {
     let (early, fin) = (demo_dir().join("early"), demo_dir().join("final"));
-    if !early.is_dir() || !fin.is_dir() {
-        println!(
-            "skipped: the demo captures ({}) are not in this checkout",
-            demo_dir().display()
-        );
-        return;
-    }
     let t = tempfile::tempdir().unwrap();
     let out = t.path().join("o");
-    let (code, _, stderr) = run(&[
+    let Ran { code, stderr, .. } = run_text([
         "compare",
         s(&fin),
         s(&early),
@@ -348,7 +325,11 @@ fn probe_deltas_find_the_checkpoint_that_encodes_phones() {
     write_capture(&a, &fr, &ls);
     write_capture(&b, &fr, &ls_b);
     let out = t.path().join("o");
-    let (code, stdout, stderr) = run(&[
+    let Ran {
+        code,
+        stdout,
+        stderr,
+    } = run_text([
         "compare",
         s(&a),
         s(&b),

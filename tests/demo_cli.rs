@@ -2,27 +2,23 @@
 //! byte from its seed, refuses to overwrite a folder holding files, and writes captures that
 //! `inspect` reads with the layers, frames and label tasks the design promises.
 
-use std::path::Path;
-use std::process::Command;
+mod common;
 
-fn bin() -> Command {
-    Command::new(env!("CARGO_BIN_EXE_voxstrata"))
-}
+use std::path::Path;
+
+use common::{run, s};
 
 fn demo(out: &Path, seed: u64) -> std::process::Output {
-    bin()
-        .args([
-            "demo",
-            "--size",
-            "small",
-            "--quiet",
-            "--seed",
-            &seed.to_string(),
-            "--out",
-        ])
-        .arg(out)
-        .output()
-        .expect("run voxstrata")
+    run([
+        "demo",
+        "--size",
+        "small",
+        "--quiet",
+        "--seed",
+        &seed.to_string(),
+        "--out",
+        s(out),
+    ])
 }
 
 /// Every file under `dir` (relative name, bytes), sorted by name.
@@ -84,11 +80,15 @@ fn demo_refuses_a_folder_that_holds_files_unless_forced() {
     let err = String::from_utf8_lossy(&o.stderr);
     assert!(err.contains("--force"), "message: {err}");
     assert!(!d.path().join("final").exists());
-    let o = bin()
-        .args(["demo", "--size", "small", "--quiet", "--force", "--out"])
-        .arg(d.path())
-        .output()
-        .unwrap();
+    let o = run([
+        "demo",
+        "--size",
+        "small",
+        "--quiet",
+        "--force",
+        "--out",
+        s(d.path()),
+    ]);
     assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
     assert_eq!(
         std::fs::read_to_string(d.path().join("keep.txt")).unwrap(),
@@ -107,11 +107,7 @@ fn demo_capture_opens_with_the_promised_layers_and_tasks() {
         "stdout: {stdout}"
     );
     for sub in ["early", "final"] {
-        let o = bin()
-            .args(["inspect", "--json"])
-            .arg(d.path().join(sub))
-            .output()
-            .unwrap();
+        let o = run(["inspect", "--json", s(&d.path().join(sub))]);
         assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
         let j: serde_json::Value = serde_json::from_slice(&o.stdout).unwrap();
         // Small size: 8 talkers (two per group), 4 utterances each, all captured.

@@ -1,43 +1,45 @@
 //! Same seed, same input, same bytes: probe, map and compare outputs (JSON and CSV) must not
 //! depend on the thread count (DESIGN.md, Conventions).
 
-use std::path::Path;
-use std::process::Command;
+mod common;
 
+use std::path::Path;
+
+use common::{demo_dir, read_json, Frames};
 use ndarray::Array2;
 
 fn write_capture(dir: &Path, shift: f32) {
-    let mut tsv = String::from("utterance\tspeaker\tphone\n");
+    let mut frames = Frames::new(&["utterance", "speaker", "phone"]);
     let mut codes = Vec::new();
     for s in 0..6 {
         for u in 0..3 {
             for i in 0..30 {
                 let p = (i / 3 + u + s) % 4;
-                tsv.push_str(&format!("s{s}u{u}\ts{s}\tp{p}\n"));
+                frames.push([format!("s{s}u{u}"), format!("s{s}"), format!("p{p}")]);
                 codes.push((p, s));
             }
         }
     }
-    std::fs::create_dir_all(dir).unwrap();
-    std::fs::write(dir.join("frames.tsv"), tsv).unwrap();
-    for l in 0..3u64 {
-        let mut x = 0x2545_F491_4F6C_DD1Du64 ^ l;
-        let m = Array2::from_shape_fn((codes.len(), 12), |(i, j)| {
-            x ^= x << 13;
-            x ^= x >> 7;
-            x ^= x << 17;
-            let noise = (x >> 40) as f32 / (1u64 << 24) as f32 - 0.5;
-            let (p, s) = codes[i];
-            noise
-                + if p == j { 1.0 + l as f32 * shift } else { 0.0 }
-                + if s + 4 == j { 1.0 } else { 0.0 }
-        });
-        ndarray_npy::write_npy(dir.join(format!("layer_{l:02}.npy")), &m).unwrap();
-    }
+    let layers: Vec<Array2<f32>> = (0..3u64)
+        .map(|l| {
+            let mut x = 0x2545_F491_4F6C_DD1Du64 ^ l;
+            Array2::from_shape_fn((codes.len(), 12), |(i, j)| {
+                x ^= x << 13;
+                x ^= x >> 7;
+                x ^= x << 17;
+                let noise = (x >> 40) as f32 / (1u64 << 24) as f32 - 0.5;
+                let (p, s) = codes[i];
+                noise
+                    + if p == j { 1.0 + l as f32 * shift } else { 0.0 }
+                    + if s + 4 == j { 1.0 } else { 0.0 }
+            })
+        })
+        .collect();
+    common::write_capture(dir, &frames, &layers);
 }
 
 fn run(threads: &str, args: &[&str]) {
-    let o = Command::new(env!("CARGO_BIN_EXE_voxstrata"))
+    let o = common::voxstrata()
         .args(["--quiet", "--seed", "7", "--threads", threads])
         .args(args)
         .output()
@@ -112,11 +114,7 @@ fn compare_is_identical_with_one_and_two_threads() {
 /// layer, ~4 100 sampled frames: the same records with one and two threads.
 #[test]
 fn fft_tsne_map_is_identical_with_one_and_two_threads() {
-    let demo = Path::new(env!("CARGO_MANIFEST_DIR")).join("demo_activations/final");
-    if !demo.is_dir() {
-        eprintln!("skipped: {} is not in this checkout", demo.display());
-        return;
-    }
+    let demo = demo_dir().join("final");
     let tmp = tempfile::tempdir().unwrap();
     let (o1, o2) = (tmp.path().join("t1"), tmp.path().join("t2"));
     for (t, o) in [("1", &o1), ("2", &o2)] {
@@ -132,8 +130,7 @@ fn fft_tsne_map_is_identical_with_one_and_two_threads() {
             ],
         );
     }
-    let j: serde_json::Value =
-        serde_json::from_str(&std::fs::read_to_string(o1.join("purity.json")).unwrap()).unwrap();
+    let j = read_json(&o1.join("purity.json"));
     assert!(
         j.to_string().contains("\"fft\""),
         "the demo map did not use the FFT gradient"

@@ -4,9 +4,11 @@
 //! failure), words that must appear on stderr, and an optional check of the outputs.
 //! No case may print panic text. To add a case, add a row.
 
-use std::path::Path;
-use std::process::Command;
+mod common;
 
+use std::path::Path;
+
+use common::{npy_bytes, run, write_layer, Frames};
 use ndarray::Array2;
 
 /// Labels that try to break markup, CSV and text layout (quotes, commas, a script tag,
@@ -63,19 +65,14 @@ fn every_hostile_input_gets_its_exit_code_and_message_without_panic() {
         let (cap, out) = (tmp.path().join("cap"), tmp.path().join("out"));
         std::fs::create_dir_all(&cap).unwrap();
         (case.setup)(&cap);
-        let args: Vec<String> = case
-            .args
-            .iter()
+        let args: Vec<String> = std::iter::once("--quiet")
+            .chain(case.args.iter().copied())
             .map(|a| {
                 a.replace("{cap}", cap.to_str().unwrap())
                     .replace("{out}", out.to_str().unwrap())
             })
             .collect();
-        let o = Command::new(env!("CARGO_BIN_EXE_voxstrata"))
-            .arg("--quiet")
-            .args(&args)
-            .output()
-            .unwrap();
+        let o = run(args);
         let err = String::from_utf8_lossy(&o.stderr);
         let code = o.status.code().unwrap_or(-1);
         let mut why = Vec::new();
@@ -114,25 +111,6 @@ fn every_hostile_input_gets_its_exit_code_and_message_without_panic() {
 
 // ---- writers -------------------------------------------------------------------------------
 
-fn npy_bytes(descr: &str, shape: &str, version: u8, data_len: usize) -> Vec<u8> {
-    let mut h = format!("{{'descr': '{descr}', 'fortran_order': False, 'shape': {shape}, }}");
-    let pre = if version == 1 { 10 } else { 12 };
-    while (pre + h.len() + 1) % 64 != 0 {
-        h.push(' ');
-    }
-    h.push('\n');
-    let mut v = b"\x93NUMPY".to_vec();
-    v.extend_from_slice(&[version, 0]);
-    if version == 1 {
-        v.extend_from_slice(&(h.len() as u16).to_le_bytes());
-    } else {
-        v.extend_from_slice(&(h.len() as u32).to_le_bytes());
-    }
-    v.extend_from_slice(h.as_bytes());
-    v.extend(std::iter::repeat_n(0u8, data_len));
-    v
-}
-
 /// Deterministic pseudo-random activations where the phone code shifts the mean.
 fn activations(codes: &[usize], dim: usize, layer: u64) -> Array2<f32> {
     let mut s = 0x9E37_79B9_7F4A_7C15u64 ^ layer;
@@ -147,25 +125,19 @@ fn activations(codes: &[usize], dim: usize, layer: u64) -> Array2<f32> {
 
 /// A capture with `frames.tsv` rows (utterance, speaker, phone, extra) and two layers.
 fn write_rows(dir: &Path, extra: &str, rows: &[(String, String, String, String)]) {
-    let mut tsv = format!("utterance\tspeaker\tphone\t{extra}\n");
+    let mut frames = Frames::new(&["utterance", "speaker", "phone", extra]);
     let mut classes: Vec<&str> = Vec::new();
     let mut codes = Vec::new();
     for (u, s, p, e) in rows {
-        tsv.push_str(&format!("{u}\t{s}\t{p}\t{e}\n"));
+        frames.push([u, s, p, e]);
         let k = classes.iter().position(|c| c == p).unwrap_or_else(|| {
             classes.push(p);
             classes.len() - 1
         });
         codes.push(k);
     }
-    std::fs::write(dir.join("frames.tsv"), tsv).unwrap();
-    for l in 0..2 {
-        ndarray_npy::write_npy(
-            dir.join(format!("layer_{l:02}.npy")),
-            &activations(&codes, 8, l),
-        )
-        .unwrap();
-    }
+    let layers: Vec<Array2<f32>> = (0..2).map(|l| activations(&codes, 8, l)).collect();
+    common::write_capture(dir, &frames, &layers);
 }
 
 fn small_rows(phones: &[&str]) -> Vec<(String, String, String, String)> {
@@ -201,7 +173,7 @@ fn huge_shape(dir: &Path) {
     good_capture(dir);
     std::fs::write(
         dir.join("layer_00.npy"),
-        npy_bytes("<f4", "(1152921504606846976, 1)", 1, 8),
+        npy_bytes("<f4", "(1152921504606846976, 1)", 1, &[0; 8]),
     )
     .unwrap();
 }
@@ -217,14 +189,14 @@ fn three_d_layer(dir: &Path) {
     good_capture(dir);
     std::fs::write(
         dir.join("layer_01.npy"),
-        npy_bytes("<f4", "(2, 240, 4)", 1, 2 * 240 * 4 * 4),
+        npy_bytes("<f4", "(2, 240, 4)", 1, &[0; 2 * 240 * 4 * 4]),
     )
     .unwrap();
 }
 
 fn huge_header_len(dir: &Path) {
     good_capture(dir);
-    let mut b = npy_bytes("<f4", "(240, 8)", 2, 240 * 8 * 4);
+    let mut b = npy_bytes("<f4", "(240, 8)", 2, &[0; 240 * 8 * 4]);
     b[8..12].copy_from_slice(&0xFFFF_FFF0u32.to_le_bytes());
     std::fs::write(dir.join("layer_00.npy"), b).unwrap();
 }
@@ -241,7 +213,7 @@ fn empty_stack(dir: &Path) {
     }
     std::fs::write(
         dir.join("stack.npy"),
-        npy_bytes("<f4", "(1152921504606846976, 0, 8)", 1, 0),
+        npy_bytes("<f4", "(1152921504606846976, 0, 8)", 1, &[]),
     )
     .unwrap();
 }
@@ -250,17 +222,13 @@ fn zero_axis_overflow(dir: &Path) {
     good_capture(dir);
     std::fs::write(
         dir.join("layer_00.npy"),
-        npy_bytes("<f4", "(0, 9223372036854775809)", 1, 0),
+        npy_bytes("<f4", "(0, 9223372036854775809)", 1, &[]),
     )
     .unwrap();
 }
 
 fn lying_frames_column(dir: &Path) {
-    ndarray_npy::write_npy(
-        dir.join("layer_00.npy"),
-        &activations(&[0, 1, 2, 0, 1], 4, 0),
-    )
-    .unwrap();
+    write_layer(dir, 0, &activations(&[0, 1, 2, 0, 1], 4, 0));
     std::fs::write(
         dir.join("utterances.tsv"),
         "utterance\tspeaker\tframes\nu1\ts1\t4294967295\nu2\ts2\t4294967295\n",
@@ -323,11 +291,7 @@ fn empty_utterance(dir: &Path) {
     std::fs::write(dir.join("utterances.tsv"), utt).unwrap();
     std::fs::write(dir.join("segments.tsv"), seg).unwrap();
     for l in 0..2 {
-        ndarray_npy::write_npy(
-            dir.join(format!("layer_{l:02}.npy")),
-            &activations(&codes, 8, l),
-        )
-        .unwrap();
+        write_layer(dir, l as usize, &activations(&codes, 8, l));
     }
 }
 

@@ -2,59 +2,44 @@
 //! table of bad inputs, each of which must exit with code 2 and a message that names the file,
 //! the row or field, and what was expected and found — never a panic.
 
+mod common;
+
 use std::path::Path;
-use std::process::{Command, Output};
 
+use common::{npy_bytes, run, write_layer, Frames};
 use ndarray::Array2;
-
-fn bin() -> Command {
-    Command::new(env!("CARGO_BIN_EXE_voxstrata"))
-}
-
-fn run(args: &[&str]) -> Output {
-    bin().args(args).output().expect("binary runs")
-}
 
 /// A small capture: 3 speakers x 2 utterances x 10 frames, 3 layers of dim 4.
 fn good_capture(dir: &Path) {
     let n = 60;
-    for l in 0..3 {
-        let a = Array2::from_shape_fn((n, 4), |(i, j)| {
-            ((i * 7 + j * 3 + l) % 11) as f32 * 0.5 - 2.0
-        });
-        ndarray_npy::write_npy(dir.join(format!("layer_{l:02}.npy")), &a).unwrap();
-    }
-    let mut t = String::from("utterance\tspeaker\tphone\tgroup\n");
+    let layers: Vec<Array2<f32>> = (0..3)
+        .map(|l| {
+            Array2::from_shape_fn((n, 4), |(i, j)| {
+                ((i * 7 + j * 3 + l) % 11) as f32 * 0.5 - 2.0
+            })
+        })
+        .collect();
+    let mut frames = Frames::new(&["utterance", "speaker", "phone", "group"]);
     for i in 0..n {
         let spk = i / 20;
         let utt = i / 10;
         let ph = ["a", "i", "s", "ʃ", "ə"][i % 5];
-        t += &format!(
-            "u{utt}\ts{spk}\t{ph}\t{}\n",
-            if spk == 0 { "child" } else { "adult" }
-        );
+        let group = if spk == 0 { "child" } else { "adult" };
+        frames.push([
+            format!("u{utt}"),
+            format!("s{spk}"),
+            ph.into(),
+            group.into(),
+        ]);
     }
-    std::fs::write(dir.join("frames.tsv"), t).unwrap();
-}
-
-fn npy_bytes(dict: &str, data: &[u8]) -> Vec<u8> {
-    let mut h = dict.to_string();
-    while (10 + h.len() + 1) % 64 != 0 {
-        h.push(' ');
-    }
-    h.push('\n');
-    let mut v = b"\x93NUMPY\x01\x00".to_vec();
-    v.extend_from_slice(&(h.len() as u16).to_le_bytes());
-    v.extend_from_slice(h.as_bytes());
-    v.extend_from_slice(data);
-    v
+    common::write_capture(dir, &frames, &layers);
 }
 
 #[test]
 fn inspect_reports_layers_tasks_and_sizes() {
     let d = tempfile::tempdir().unwrap();
     good_capture(d.path());
-    let out = run(&["inspect", d.path().to_str().unwrap(), "--json"]);
+    let out = run(["inspect", d.path().to_str().unwrap(), "--json"]);
     assert!(
         out.status.success(),
         "{}",
@@ -78,7 +63,7 @@ fn inspect_reports_layers_tasks_and_sizes() {
     assert_eq!(v["tasks"][0]["largest"][0]["frames"], 12);
     assert_eq!(v["bytes_on_disk"].as_u64().unwrap(), 3 * (128 + 60 * 4 * 4));
     // Text form names the IPA labels as they are.
-    let text = run(&["inspect", d.path().to_str().unwrap()]);
+    let text = run(["inspect", d.path().to_str().unwrap()]);
     let s = String::from_utf8(text.stdout).unwrap();
     assert!(s.contains("phone") && s.contains("ʃ"), "{s}");
 }
@@ -104,7 +89,7 @@ fn inspect_reads_segments_with_hop_from_capture_toml() {
         "utterance\tstart_s\tend_s\tlabel\nu1\t0\t0.03\tsil\nu1\t0.03\t0.06\ta\nu2\t0.0\t0.02\ts\n",
     )
     .unwrap();
-    let out = run(&[
+    let out = run([
         "inspect",
         d.path().to_str().unwrap(),
         "--json",
@@ -132,7 +117,7 @@ fn inspect_reads_a_single_3d_stack() {
     }
     let a = ndarray::Array3::<f32>::from_shape_fn((5, 60, 2), |(l, i, j)| (l * 100 + i + j) as f32);
     ndarray_npy::write_npy(d.path().join("activations.npy"), &a).unwrap();
-    let out = run(&["inspect", d.path().to_str().unwrap(), "--json"]);
+    let out = run(["inspect", d.path().to_str().unwrap(), "--json"]);
     assert!(
         out.status.success(),
         "{}",
@@ -148,8 +133,8 @@ fn inspect_warns_about_nan_and_constant_columns_and_tiny_classes() {
     good_capture(d.path());
     let mut a = Array2::from_shape_fn((60, 4), |(i, j)| (i * j) as f32);
     a[[7, 2]] = f32::NAN;
-    ndarray_npy::write_npy(d.path().join("layer_01.npy"), &a).unwrap();
-    let out = run(&["inspect", d.path().to_str().unwrap(), "--json"]);
+    write_layer(d.path(), 1, &a);
+    let out = run(["inspect", d.path().to_str().unwrap(), "--json"]);
     assert!(out.status.success());
     let v: serde_json::Value = serde_json::from_slice(&out.stdout).unwrap();
     let w: Vec<String> = v["warnings"]
@@ -180,8 +165,7 @@ const BAD: &[(&str, Setup, &[&str])] = &[
         "layer frames differ from labels",
         |d| {
             for l in 0..3 {
-                let a = Array2::<f32>::zeros((59, 4));
-                ndarray_npy::write_npy(d.join(format!("layer_{l:02}.npy")), &a).unwrap();
+                write_layer(d, l, &Array2::<f32>::zeros((59, 4)));
             }
         },
         &["layer_00.npy", "60 frames", "59"],
@@ -189,7 +173,7 @@ const BAD: &[(&str, Setup, &[&str])] = &[
     (
         "layers with different frame counts",
         |d| {
-            ndarray_npy::write_npy(d.join("layer_02.npy"), &Array2::<f32>::zeros((61, 4))).unwrap();
+            write_layer(d, 2, &Array2::<f32>::zeros((61, 4)));
         },
         &["layer_02.npy", "61 frames", "layer_00.npy"],
     ),
@@ -214,10 +198,7 @@ const BAD: &[(&str, Setup, &[&str])] = &[
         |d| {
             std::fs::write(
                 d.join("layer_01.npy"),
-                npy_bytes(
-                    "{'descr': '<c8', 'fortran_order': False, 'shape': (60, 4), }",
-                    &[0; 60 * 4 * 8],
-                ),
+                npy_bytes("<c8", "(60, 4)", 1, &[0; 60 * 4 * 8]),
             )
             .unwrap();
         },
@@ -228,10 +209,7 @@ const BAD: &[(&str, Setup, &[&str])] = &[
         |d| {
             std::fs::write(
                 d.join("layer_01.npy"),
-                npy_bytes(
-                    "{'descr': '|O', 'fortran_order': False, 'shape': (60, 4), }",
-                    &[0; 64],
-                ),
+                npy_bytes("|O", "(60, 4)", 1, &[0; 64]),
             )
             .unwrap();
         },
@@ -242,10 +220,7 @@ const BAD: &[(&str, Setup, &[&str])] = &[
         |d| {
             std::fs::write(
                 d.join("layer_01.npy"),
-                npy_bytes(
-                    "{'descr': '<i4', 'fortran_order': False, 'shape': (60, 4), }",
-                    &[0; 60 * 16],
-                ),
+                npy_bytes("<i4", "(60, 4)", 1, &[0; 60 * 16]),
             )
             .unwrap();
         },
@@ -256,10 +231,7 @@ const BAD: &[(&str, Setup, &[&str])] = &[
         |d| {
             std::fs::write(
                 d.join("layer_01.npy"),
-                npy_bytes(
-                    "{'descr': '<f4', 'fortran_order': False, 'shape': (1152921504606846976, 4), }",
-                    &[0; 64],
-                ),
+                npy_bytes("<f4", "(1152921504606846976, 4)", 1, &[0; 64]),
             )
             .unwrap();
         },
@@ -402,7 +374,7 @@ fn bad_inputs_exit_2_with_a_message_naming_the_problem() {
         let d = tempfile::tempdir().unwrap();
         good_capture(d.path());
         setup(d.path());
-        let out = run(&["inspect", d.path().to_str().unwrap()]);
+        let out = run(["inspect", d.path().to_str().unwrap()]);
         let err = String::from_utf8_lossy(&out.stderr).to_string();
         if out.status.code() != Some(2) {
             failures.push(format!(
@@ -425,14 +397,14 @@ fn bad_inputs_exit_2_with_a_message_naming_the_problem() {
 
 #[test]
 fn missing_capture_folder_is_bad_input() {
-    let out = run(&["inspect", "/nonexistent/capture"]);
+    let out = run(["inspect", "/nonexistent/capture"]);
     assert_eq!(out.status.code(), Some(2));
     assert!(String::from_utf8_lossy(&out.stderr).contains("/nonexistent/capture"));
 }
 
 #[test]
 fn unknown_option_is_a_usage_error() {
-    let out = run(&["inspect", ".", "--no-such-option"]);
+    let out = run(["inspect", ".", "--no-such-option"]);
     assert_eq!(out.status.code(), Some(2));
 }
 
@@ -442,7 +414,7 @@ fn nonfinite_values_stop_a_layer_read_or_are_dropped_when_allowed() {
     good_capture(d.path());
     let mut a = Array2::from_shape_fn((60, 4), |(i, j)| (i + j) as f32);
     a[[12, 3]] = f32::INFINITY;
-    ndarray_npy::write_npy(d.path().join("layer_02.npy"), &a).unwrap();
+    write_layer(d.path(), 2, &a);
     let cap = voxstrata::Capture::open(d.path(), &Default::default()).unwrap();
     let e = cap.read_layer(2).unwrap_err().to_string();
     assert!(

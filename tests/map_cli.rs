@@ -2,9 +2,11 @@
 //! the speaker and whose last layer is dominated by the phone, the outputs it must write, the
 //! bad-input cases, and (when the shipped demo is present) the demo's final capture.
 
-use std::path::{Path, PathBuf};
-use std::process::Command;
+mod common;
 
+use std::path::Path;
+
+use common::{demo_dir, read_json, write_layer, Frames};
 use ndarray::{Array1, Array2};
 
 const PHONES: [&str; 5] = ["a", "ʃ", "ə", "t", "i"];
@@ -12,43 +14,47 @@ const PHONES: [&str; 5] = ["a", "ʃ", "ə", "t", "i"];
 /// 4 speakers × 2 utterances × 40 frames; three layers from speaker-coded to phone-coded.
 fn synthetic_capture(dir: &Path) {
     let (n_spk, n_utt, n_frames, dim) = (4usize, 2usize, 40usize, 12usize);
-    let mut tsv = String::from("utterance\tspeaker\tphone\tgender\n");
+    let mut frames = Frames::new(&["utterance", "speaker", "phone", "gender"]);
     let mut rows = Vec::new();
     for s in 0..n_spk {
         for u in 0..n_utt {
             for f in 0..n_frames {
                 let ph = (f / 4 + u) % PHONES.len();
                 let g = if s % 2 == 0 { "f" } else { "m" };
-                tsv.push_str(&format!("s{s}u{u}\tspk{s}\t{}\t{g}\n", PHONES[ph]));
+                frames.push([
+                    format!("s{s}u{u}"),
+                    format!("spk{s}"),
+                    PHONES[ph].into(),
+                    g.into(),
+                ]);
                 rows.push((s, ph, rows.len()));
             }
         }
     }
-    std::fs::write(dir.join("frames.tsv"), tsv).unwrap();
-    for layer in 0..3 {
-        let w = layer as f32 / 2.0; // 0: speaker only, 1: phone only
-        let x = Array2::from_shape_fn((rows.len(), dim), |(i, j)| {
-            let (s, ph, k) = rows[i];
-            let noise = (((k * 7919 + j * 104729) % 1000) as f32 / 1000.0 - 0.5) * 0.6;
-            let spk = if j % n_spk == s { 3.0 } else { 0.0 };
-            let phn = if j % PHONES.len() == ph { 3.0 } else { 0.0 };
-            (1.0 - w) * spk + w * phn + noise
-        });
-        ndarray_npy::write_npy(dir.join(format!("layer_{layer:02}.npy")), &x).unwrap();
-    }
+    let layers: Vec<Array2<f32>> = (0..3)
+        .map(|layer| {
+            let w = layer as f32 / 2.0; // 0: speaker only, 1: phone only
+            Array2::from_shape_fn((rows.len(), dim), |(i, j)| {
+                let (s, ph, k) = rows[i];
+                let noise = (((k * 7919 + j * 104729) % 1000) as f32 / 1000.0 - 0.5) * 0.6;
+                let spk = if j % n_spk == s { 3.0 } else { 0.0 };
+                let phn = if j % PHONES.len() == ph { 3.0 } else { 0.0 };
+                (1.0 - w) * spk + w * phn + noise
+            })
+        })
+        .collect();
+    common::write_capture(dir, &frames, &layers);
 }
 
 fn voxstrata(args: &[&str]) -> std::process::Output {
-    Command::new(env!("CARGO_BIN_EXE_voxstrata"))
-        .args(args)
-        .output()
-        .unwrap()
+    common::run(args)
 }
 
 fn records(out: &Path) -> Vec<serde_json::Value> {
-    let j: serde_json::Value =
-        serde_json::from_str(&std::fs::read_to_string(out.join("purity.json")).unwrap()).unwrap();
-    j["records"].as_array().unwrap().clone()
+    read_json(&out.join("purity.json"))["records"]
+        .as_array()
+        .unwrap()
+        .clone()
 }
 
 fn metric(recs: &[serde_json::Value], layer: u64, label: &str, key: &str) -> f64 {
@@ -202,7 +208,7 @@ fn too_few_points_and_unknown_labels_exit_2_and_write_nothing() {
         "utterance\tspeaker\tphone\nu1\ts1\ta\nu1\ts1\tb\n",
     )
     .unwrap();
-    ndarray_npy::write_npy(cap.join("layer_00.npy"), &Array2::<f32>::ones((2, 3))).unwrap();
+    write_layer(&cap, 0, &Array2::<f32>::ones((2, 3)));
     let out = tmp.path().join("out");
     let o = voxstrata(&[
         "map",
@@ -264,17 +270,9 @@ fn a_label_with_one_frame_is_skipped_in_the_silhouette_and_reported() {
     );
 }
 
-fn demo_final() -> Option<PathBuf> {
-    let p = Path::new(env!("CARGO_MANIFEST_DIR")).join("demo_activations/final");
-    p.is_dir().then_some(p)
-}
-
 #[test]
 fn demo_speaker_purity_falls_and_phone_purity_rises_with_depth() {
-    let Some(cap) = demo_final() else {
-        eprintln!("skipped: demo_activations/final is not in this checkout");
-        return;
-    };
+    let cap = demo_dir().join("final");
     let tmp = tempfile::tempdir().unwrap();
     let out = tmp.path().join("out");
     let o = voxstrata(&[

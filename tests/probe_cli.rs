@@ -2,9 +2,11 @@
 //! tests/reference/make_probe.py, linfa-logistic as an independent trainer) and the `probe`
 //! command end to end on small synthetic captures.
 
-use std::path::{Path, PathBuf};
-use std::process::Command;
+mod common;
 
+use std::path::{Path, PathBuf};
+
+use common::{demo_dir, read_json, run_text, Frames, Ran};
 use linfa::prelude::*;
 use ndarray::{Array1, Array2, Axis};
 use ndarray_npy::read_npy;
@@ -204,14 +206,12 @@ fn fit_predict_chooses_a_penalty_from_the_grid() {
 type ExtraColumn<'a> = (&'a str, &'a dyn Fn(usize, usize) -> String);
 
 fn synth(dir: &Path, n_spk: usize, extra: Option<ExtraColumn>) {
-    std::fs::create_dir_all(dir).unwrap();
     let dim = 6;
-    let mut tsv = String::from("utterance\tspeaker\tphone");
+    let mut columns = vec!["utterance", "speaker", "phone"];
     if let Some((name, _)) = extra {
-        tsv.push('\t');
-        tsv.push_str(name);
+        columns.push(name);
     }
-    tsv.push('\n');
+    let mut frames = Frames::new(&columns);
     let mut rows = Vec::new();
     let mut state = 12345u64;
     let mut noise = || {
@@ -224,17 +224,16 @@ fn synth(dir: &Path, n_spk: usize, extra: Option<ExtraColumn>) {
         for u in 0..4 {
             for f in 0..30 {
                 let ph = (f / 3 + u + s) % 5;
-                tsv.push_str(&format!("s{s}u{u}\tspk{s}\tph{ph}"));
+                let mut row = vec![format!("s{s}u{u}"), format!("spk{s}"), format!("ph{ph}")];
                 if let Some((_, val)) = extra {
-                    tsv.push('\t');
-                    tsv.push_str(&val(s, ph));
+                    row.push(val(s, ph));
                 }
-                tsv.push('\n');
+                frames.push(row);
                 rows.push((s, ph));
             }
         }
     }
-    std::fs::write(dir.join("frames.tsv"), tsv).unwrap();
+    let mut layers = Vec::new();
     for l in 0..3 {
         let (wp, ws) = [(0.2, 2.0), (1.5, 0.8), (2.0, 0.1)][l];
         let mut x = Array2::<f32>::zeros((rows.len(), dim));
@@ -246,20 +245,13 @@ fn synth(dir: &Path, n_spk: usize, extra: Option<ExtraColumn>) {
                 x[[i, j]] = v as f32;
             }
         }
-        ndarray_npy::write_npy(dir.join(format!("layer_{l:02}.npy")), &x).unwrap();
+        layers.push(x);
     }
+    common::write_capture(dir, &frames, &layers);
 }
 
-fn probe(args: &[&str]) -> (i32, String, String) {
-    let out = Command::new(env!("CARGO_BIN_EXE_voxstrata"))
-        .args(args)
-        .output()
-        .unwrap();
-    (
-        out.status.code().unwrap_or(-1),
-        String::from_utf8_lossy(&out.stdout).into(),
-        String::from_utf8_lossy(&out.stderr).into(),
-    )
+fn probe(args: &[&str]) -> Ran {
+    run_text(args)
 }
 
 #[test]
@@ -268,7 +260,11 @@ fn probe_writes_records_pictures_and_a_leak_free_split() {
     let cap = tmp.path().join("cap");
     synth(&cap, 6, None);
     let out = tmp.path().join("out");
-    let (code, stdout, stderr) = probe(&[
+    let Ran {
+        code,
+        stdout,
+        stderr,
+    } = probe(&[
         "probe",
         cap.to_str().unwrap(),
         "--out",
@@ -295,8 +291,7 @@ fn probe_writes_records_pictures_and_a_leak_free_split() {
     let csv = std::fs::read_to_string(out.join("probe.csv")).unwrap();
     assert!(csv.starts_with("layer,task,pooling,split,n_train,n_test,n_classes,accuracy,ci_low,ci_high,macro_f1,balanced_accuracy,majority_baseline,control_accuracy,selectivity"));
     assert_eq!(csv.lines().count(), 1 + 3 * 2);
-    let j: serde_json::Value =
-        serde_json::from_str(&std::fs::read_to_string(out.join("probe.json")).unwrap()).unwrap();
+    let j = read_json(&out.join("probe.json"));
     assert_eq!(j["leakage_check"]["phone"]["passed"], true);
     assert_eq!(j["leakage_check"]["phone"]["shared_speakers"], 0);
     assert_eq!(
@@ -339,7 +334,7 @@ fn probe_writes_records_pictures_and_a_leak_free_split() {
     }
     // Same seed, different thread count: identical records.
     let out2 = tmp.path().join("out2");
-    let (code, _, _) = probe(&[
+    let Ran { code, .. } = probe(&[
         "probe",
         cap.to_str().unwrap(),
         "--out",
@@ -363,7 +358,7 @@ fn probe_folds_report_spread() {
     let cap = tmp.path().join("cap");
     synth(&cap, 6, None);
     let out = tmp.path().join("out");
-    let (code, _, stderr) = probe(&[
+    let Ran { code, stderr, .. } = probe(&[
         "probe",
         cap.to_str().unwrap(),
         "--out",
@@ -379,8 +374,7 @@ fn probe_folds_report_spread() {
         "2",
     ]);
     assert_eq!(code, 0, "{stderr}");
-    let j: serde_json::Value =
-        serde_json::from_str(&std::fs::read_to_string(out.join("probe.json")).unwrap()).unwrap();
+    let j = read_json(&out.join("probe.json"));
     let r = &j["records"][0];
     assert_eq!(r["folds"], 3);
     assert!(r["accuracy_sd"].as_f64().is_some());
@@ -389,7 +383,7 @@ fn probe_folds_report_spread() {
 }
 
 fn refused(args: &[&str], out: &Path, needle: &str) -> String {
-    let (code, _, stderr) = probe(args);
+    let Ran { code, stderr, .. } = probe(args);
     assert_eq!(code, 2, "expected exit 2 for {args:?}: {stderr}");
     assert!(
         stderr.contains(needle),
@@ -502,7 +496,7 @@ fn bad_input_is_refused_before_anything_is_written() {
         "rare",
     );
     // ... dropped with a warning naming it otherwise.
-    let (code, _, stderr) = probe(&[
+    let Ran { code, stderr, .. } = probe(&[
         "probe",
         oc,
         "--out",
@@ -537,7 +531,7 @@ fn bad_input_is_refused_before_anything_is_written() {
         "--split utterance",
     );
     // Context longer than the shortest utterance: runs, padded, and says so.
-    let (code, _, stderr) = probe(&[
+    let Ran { code, stderr, .. } = probe(&[
         "probe",
         c,
         "--out",
@@ -561,17 +555,14 @@ fn bad_input_is_refused_before_anything_is_written() {
 
 #[test]
 fn demo_final_capture_shows_the_expected_layer_story() {
-    let demo = Path::new(env!("CARGO_MANIFEST_DIR")).join("demo_activations/final");
-    if !demo.exists() {
-        eprintln!(
-            "skipped: {} is absent (the demo capture is built by `voxstrata demo`)",
-            demo.display()
-        );
-        return;
-    }
+    let demo = demo_dir().join("final");
     let tmp = tempfile::tempdir().unwrap();
     let out = tmp.path().join("out");
-    let (code, stdout, stderr) = probe(&[
+    let Ran {
+        code,
+        stdout,
+        stderr,
+    } = probe(&[
         "probe",
         demo.to_str().unwrap(),
         "--out",
@@ -580,8 +571,7 @@ fn demo_final_capture_shows_the_expected_layer_story() {
     ]);
     assert_eq!(code, 0, "{stderr}");
     eprintln!("{stdout}");
-    let j: serde_json::Value =
-        serde_json::from_str(&std::fs::read_to_string(out.join("probe.json")).unwrap()).unwrap();
+    let j = read_json(&out.join("probe.json"));
     let recs = j["records"].as_array().unwrap();
     let rows = |task: &str| -> Vec<(u64, f64, f64)> {
         recs.iter()

@@ -3,10 +3,12 @@
 //! DevTools protocol (no console errors, no request outside the file, the explorer draws,
 //! the slider and arrow keys change the layer, hover shows the right frame's labels).
 
+mod common;
+
 use std::path::{Path, PathBuf};
-use std::process::Command;
 use std::sync::{Arc, Mutex};
 
+use common::{read_json, run, s, Frames};
 use ndarray::Array2;
 use rand::{Rng, SeedableRng};
 
@@ -19,10 +21,6 @@ const FRAMES_PER_UTT: usize = 20;
 const LAYERS: usize = 3;
 const DIM: usize = 6;
 
-fn bin() -> Command {
-    Command::new(env!("CARGO_BIN_EXE_voxstrata"))
-}
-
 fn utt_name(s: usize, u: usize) -> String {
     format!("spk{s}_utt{u}")
 }
@@ -34,24 +32,23 @@ fn phone_of(pos: usize) -> usize {
 /// Write a capture: frames.tsv and one .npy per layer where phone separates more with depth
 /// and speaker less (a cartoon of the usual picture).
 fn write_capture(dir: &Path, seed: u64) {
-    std::fs::create_dir_all(dir).unwrap();
-    let mut tsv = String::from("utterance\tspeaker\tphone\n");
+    let mut frames = Frames::new(&["utterance", "speaker", "phone"]);
     let mut rows = Vec::new();
     for s in 0..SPEAKERS {
         for u in 0..UTTS_PER_SPEAKER {
             for pos in 0..FRAMES_PER_UTT {
                 let p = phone_of(pos);
-                tsv.push_str(&format!(
-                    "{}\tspeaker {s} & co\t{}\n",
+                frames.push([
                     utt_name(s, u),
-                    PHONES[p]
-                ));
+                    format!("speaker {s} & co"),
+                    PHONES[p].into(),
+                ]);
                 rows.push((s, p));
             }
         }
     }
-    std::fs::write(dir.join("frames.tsv"), tsv).unwrap();
     let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(seed);
+    let mut layers = Vec::new();
     for l in 0..LAYERS {
         let w = l as f32 / (LAYERS - 1) as f32;
         let mut x = Array2::<f32>::zeros((rows.len(), DIM));
@@ -63,8 +60,9 @@ fn write_capture(dir: &Path, seed: u64) {
                 x[[i, d]] = phone + spk + noise;
             }
         }
-        ndarray_npy::write_npy(dir.join(format!("layer_{l:02}.npy")), &x).unwrap();
+        layers.push(x);
     }
+    common::write_capture(dir, &frames, &layers);
 }
 
 #[test]
@@ -73,13 +71,15 @@ fn report_writes_page_run_json_and_probe_outputs() {
     let cap = t.path().join("cap");
     write_capture(&cap, 1);
     let out = t.path().join("out");
-    let o = bin()
-        .args(["report", "--quiet", "--seed", "3"])
-        .arg(&cap)
-        .arg("--out")
-        .arg(&out)
-        .output()
-        .unwrap();
+    let o = run([
+        "report",
+        "--quiet",
+        "--seed",
+        "3",
+        s(&cap),
+        "--out",
+        s(&out),
+    ]);
     assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
     for f in [
         "index.html",
@@ -128,8 +128,7 @@ fn report_writes_page_run_json_and_probe_outputs() {
         "no crossover marked"
     );
     // run.json: inputs hashed, steps timed.
-    let run: serde_json::Value =
-        serde_json::from_str(&std::fs::read_to_string(out.join("run.json")).unwrap()).unwrap();
+    let run = read_json(&out.join("run.json"));
     let inputs = run["inputs"].as_array().unwrap();
     assert_eq!(inputs.len(), LAYERS + 1, "layer files and frames.tsv");
     for i in inputs {
@@ -154,14 +153,16 @@ fn report_on_two_captures_compares_them() {
     write_capture(&a, 1);
     write_capture(&b, 2);
     let out = t.path().join("out");
-    let o = bin()
-        .args(["report", "--quiet", "--map-method", "pca"])
-        .arg(&a)
-        .arg(&b)
-        .arg("--out")
-        .arg(&out)
-        .output()
-        .unwrap();
+    let o = run([
+        "report",
+        "--quiet",
+        "--map-method",
+        "pca",
+        s(&a),
+        s(&b),
+        "--out",
+        s(&out),
+    ]);
     assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
     for f in [
         "compare.json",
@@ -173,8 +174,7 @@ fn report_on_two_captures_compares_them() {
         assert!(out.join(f).is_file(), "{f} missing");
     }
     let page = std::fs::read_to_string(out.join("index.html")).unwrap();
-    let cmp: serde_json::Value =
-        serde_json::from_str(&std::fs::read_to_string(out.join("compare.json")).unwrap()).unwrap();
+    let cmp = read_json(&out.join("compare.json"));
     let deltas = cmp["probe_delta"].as_array().unwrap();
     assert!(!deltas.is_empty());
     // Every probe delta row reaches the page's table (its McNemar method is in the JSON only).
@@ -189,8 +189,7 @@ fn report_on_two_captures_compares_them() {
         LAYERS * LAYERS,
         "CKA for every layer pair"
     );
-    let run: serde_json::Value =
-        serde_json::from_str(&std::fs::read_to_string(out.join("run.json")).unwrap()).unwrap();
+    let run = read_json(&out.join("run.json"));
     let outputs: Vec<&str> = run["outputs"]
         .as_array()
         .unwrap()
@@ -214,13 +213,7 @@ fn report_refuses_a_folder_with_files_unless_forced() {
     let out = t.path().join("out");
     std::fs::create_dir_all(&out).unwrap();
     std::fs::write(out.join("keep.txt"), "x").unwrap();
-    let o = bin()
-        .args(["report", "--quiet"])
-        .arg(&cap)
-        .arg("--out")
-        .arg(&out)
-        .output()
-        .unwrap();
+    let o = run(["report", "--quiet", s(&cap), "--out", s(&out)]);
     assert_eq!(
         o.status.code(),
         Some(2),
@@ -228,13 +221,7 @@ fn report_refuses_a_folder_with_files_unless_forced() {
         String::from_utf8_lossy(&o.stderr)
     );
     assert!(!out.join("index.html").exists());
-    let o = bin()
-        .args(["report", "--quiet", "--force"])
-        .arg(&cap)
-        .arg("--out")
-        .arg(&out)
-        .output()
-        .unwrap();
+    let o = run(["report", "--quiet", "--force", s(&cap), "--out", s(&out)]);
     assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
     assert!(out.join("index.html").is_file() && out.join("keep.txt").is_file());
 }
@@ -251,14 +238,7 @@ fn report_stops_on_a_bad_capture_before_any_analysis() {
     tsv.push_str("spk0_utt0\tspeaker 0 & co\ta\n");
     std::fs::write(bad.join("frames.tsv"), tsv).unwrap();
     let out = t.path().join("out");
-    let o = bin()
-        .args(["report", "--quiet"])
-        .arg(&good)
-        .arg(&bad)
-        .arg("--out")
-        .arg(&out)
-        .output()
-        .unwrap();
+    let o = run(["report", "--quiet", s(&good), s(&bad), "--out", s(&out)]);
     assert_eq!(
         o.status.code(),
         Some(2),
@@ -271,31 +251,51 @@ fn report_stops_on_a_bad_capture_before_any_analysis() {
         "nothing may be written before the captures validate"
     );
     // Three captures: refused too.
-    let o = bin()
-        .args(["report", "--quiet"])
-        .arg(&good)
-        .arg(&good)
-        .arg(&good)
-        .arg("--out")
-        .arg(&out)
-        .output()
-        .unwrap();
+    let g = s(&good);
+    let o = run(["report", "--quiet", g, g, g, "--out", s(&out)]);
     assert_eq!(o.status.code(), Some(2));
 }
 
-/// Chromium from Debian (or the path in VOXSTRATA_CHROMIUM).
-fn chromium() -> Option<PathBuf> {
-    if let Ok(p) = std::env::var("VOXSTRATA_CHROMIUM") {
-        return Some(PathBuf::from(p));
+/// Whether this is a CI run (`CI` set and not `false`/`0`, as CI services set it).
+fn under_ci() -> bool {
+    std::env::var("CI").is_ok_and(|v| !v.is_empty() && v != "false" && v != "0")
+}
+
+/// Chromium for the browser tests: the path in VOXSTRATA_CHROMIUM (which must exist), else
+/// Debian's `chromium` (or `chromium-browser`, `google-chrome`) in /usr/bin or on PATH.
+/// None only when no browser can be found; then the test says why on stderr and skips.
+/// Under CI (`CI=true`) .ci/run installs Chromium, so a missing browser fails instead.
+fn chromium(test: &str) -> Option<PathBuf> {
+    if let Some(p) = std::env::var_os("VOXSTRATA_CHROMIUM") {
+        let p = PathBuf::from(p);
+        assert!(
+            p.is_file(),
+            "{test}: VOXSTRATA_CHROMIUM={} is not a file",
+            p.display()
+        );
+        return Some(p);
     }
-    [
-        "/usr/bin/chromium",
-        "/usr/bin/chromium-browser",
-        "/usr/bin/google-chrome",
-    ]
-    .iter()
-    .map(PathBuf::from)
-    .find(|p| p.is_file())
+    let names = ["chromium", "chromium-browser", "google-chrome"];
+    let mut dirs = vec![PathBuf::from("/usr/bin")];
+    if let Some(path) = std::env::var_os("PATH") {
+        dirs.extend(std::env::split_paths(&path));
+    }
+    let found = dirs
+        .iter()
+        .flat_map(|d| names.iter().map(move |n| d.join(n)))
+        .find(|p| p.is_file());
+    if found.is_none() {
+        let why = format!(
+            "no Chromium: none of {names:?} in /usr/bin or on PATH, and VOXSTRATA_CHROMIUM is \
+             unset (install Debian's `chromium`)"
+        );
+        assert!(
+            !under_ci(),
+            "{test}: {why}; under CI (CI is set) the browser tests must run: .ci/run installs it"
+        );
+        eprintln!("{test}: SKIPPED: {why}");
+    }
+    found
 }
 
 /// The page the real `report` command writes for a synthetic capture (probe, t-SNE maps,
@@ -305,13 +305,15 @@ fn build_page(dir: &Path) -> (PathBuf, Vec<u64>) {
     let cap_dir = dir.join("cap");
     write_capture(&cap_dir, 5);
     let out = dir.join("out");
-    let o = bin()
-        .args(["report", "--quiet", "--seed", "2"])
-        .arg(&cap_dir)
-        .arg("--out")
-        .arg(&out)
-        .output()
-        .unwrap();
+    let o = run([
+        "report",
+        "--quiet",
+        "--seed",
+        "2",
+        s(&cap_dir),
+        "--out",
+        s(&out),
+    ]);
     assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
     let f = std::fs::File::open(out.join("maps").join("frames.npy")).unwrap();
     let frames = ndarray::Array1::<u64>::read_npy(f).unwrap().to_vec();
@@ -324,8 +326,7 @@ fn page_works_in_headless_chromium() {
     use headless_chrome::protocol::cdp::Page::CaptureScreenshotFormatOption;
     use headless_chrome::{browser::tab::point::Point, Browser, LaunchOptions};
 
-    let Some(chrome) = chromium() else {
-        eprintln!("page_works_in_headless_chromium: SKIPPED: no Chromium found (install Debian's `chromium`)");
+    let Some(chrome) = chromium("page_works_in_headless_chromium") else {
         return;
     };
     let t = tempfile::tempdir().unwrap();
@@ -550,8 +551,11 @@ fn page_works_in_headless_chromium() {
 #[ignore]
 fn time_first_render_of_a_page() {
     use headless_chrome::{Browser, LaunchOptions};
-    let (Some(chrome), Ok(page)) = (chromium(), std::env::var("VOXSTRATA_PAGE")) else {
-        eprintln!("time_first_render_of_a_page: SKIPPED: needs Chromium and VOXSTRATA_PAGE");
+    let Ok(page) = std::env::var("VOXSTRATA_PAGE") else {
+        eprintln!("time_first_render_of_a_page: SKIPPED: VOXSTRATA_PAGE is not set");
+        return;
+    };
+    let Some(chrome) = chromium("time_first_render_of_a_page") else {
         return;
     };
     let t = tempfile::tempdir().unwrap();

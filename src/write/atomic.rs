@@ -11,6 +11,8 @@ use super::{io, OutputError};
 pub const PARTIAL_MARK: &str = ".partial-";
 
 /// Write `bytes` to `path` through a temporary file in the same folder and a rename.
+/// Test hook: `VOXSTRATA_TEST_WRITE_PAUSE_MS=N` writes half, flushes, sleeps N ms, then the
+/// rest, so a test can stop the process while a file is half-written.
 pub fn write_atomic(path: &Path, bytes: &[u8]) -> Result<(), OutputError> {
     let dir = path
         .parent()
@@ -24,7 +26,17 @@ pub fn write_atomic(path: &Path, bytes: &[u8]) -> Result<(), OutputError> {
     let tmp = dir.join(format!(".{name}{PARTIAL_MARK}{}", std::process::id()));
     let res = (|| {
         let mut f = std::fs::File::create(&tmp)?;
-        f.write_all(bytes)?;
+        let pause_ms = std::env::var("VOXSTRATA_TEST_WRITE_PAUSE_MS")
+            .ok()
+            .and_then(|v| v.parse::<u64>().ok())
+            .unwrap_or(0);
+        let (head, tail) = bytes.split_at(if pause_ms > 0 { bytes.len() / 2 } else { 0 });
+        f.write_all(head)?;
+        if pause_ms > 0 {
+            f.flush()?;
+            std::thread::sleep(std::time::Duration::from_millis(pause_ms));
+        }
+        f.write_all(tail)?;
         f.sync_all()?;
         std::fs::rename(&tmp, path)
     })();
