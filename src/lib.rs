@@ -4,6 +4,7 @@
 //! → analyses (probe, map, purity, compare) → tidy records ([`output`]) → pictures
 //! ([`plot`]) and the report. See `docs/design.md`.
 
+pub mod analysis;
 pub mod capture;
 pub mod compare;
 pub mod demo;
@@ -16,6 +17,7 @@ pub mod plot;
 pub mod probe;
 pub mod progress;
 pub mod purity;
+pub mod records;
 pub mod report;
 pub mod select;
 pub mod stats;

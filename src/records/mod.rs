@@ -1,0 +1,3 @@
+//! Tidy records that analyses return and writers serialise.
+
+pub mod abx;
