@@ -231,3 +231,30 @@ fn zero_frames_are_counted() {
     x.row_mut(1).fill(0.0);
     assert_eq!(layer_records(&it, x.view(), 0).unwrap().zero_frames, 1);
 }
+
+#[test]
+fn distances_take_the_item_roles_into_account() {
+    // d(A, X) puts A's frames on the rows; on exact up/left ties the path, and so the
+    // distance, can differ from d(X, A). Frames are p = (1,0), q = (0,1), n = (-1,0), z = 0,
+    // so frame distances are exactly 0, 1/2 or 1. Items a1 = p p q, a2 = n q p n, b = p n p,
+    // all in context (x, x) of one speaker: two triplets, (A, X) = (a1, a2) and (a2, a1).
+    // The definition (the DTW with its tie order, computed by brute force as in make_abx.py)
+    // gives them a mean score of 1/4: error 0.75; with the roles swapped the mean would be
+    // 1/2 (error 0.5).
+    let t = table(&[("s1", "x a a a x b b b x a a a a x")]);
+    let frames = "p p p q p p n p p n q p n p";
+    let vec = |c: &str| match c {
+        "p" => [1.0f32, 0.0],
+        "q" => [0.0, 1.0],
+        "n" => [-1.0, 0.0],
+        _ => [0.0, 0.0],
+    };
+    let all: Vec<[f32; 2]> = frames.split_whitespace().map(vec).collect();
+    let it = AbxItems::new(&t, "phone", 0, 0).unwrap();
+    let x = Array2::from_shape_fn((it.rows().len(), 2), |(r, j)| all[it.rows()[r]][j]);
+    let out = layer_records(&it, x.view(), 0).unwrap();
+    assert_eq!(out.records.len(), 1);
+    let r = &out.records[0];
+    assert_eq!((r.n_pairs, r.n_triplets), (1, 2));
+    assert_eq!(r.error_rate, 0.75);
+}
