@@ -1,7 +1,7 @@
 //! Benchmark helper: phone ABX of every layer of a capture through `analysis::abx::run` (the
 //! layers read from the capture files, only the frames the items use). Prints one JSON line
-//! with the seconds of each layer (each layer run alone), the seconds of one run over all
-//! layers, the item counts and the records.
+//! with the seconds of building the items, of each layer (each layer run alone, items
+//! included), of one run over all layers, the item counts and the records.
 //!
 //! Usage: `bench_abx CAPTURE [--speakers K] [--max-items N] [--seed S]`; `--speakers K` keeps
 //! the first K speakers (in order of first appearance) and leaves the others' frames
@@ -40,6 +40,11 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
         cap.frames.mask_frames(&bad);
     }
     let layers: Vec<usize> = (0..cap.layers.len()).collect();
+    // the item structure alone (part of every run below)
+    let t = Instant::now();
+    let items = abx::AbxItems::new(&cap.frames, &opts.label, opts.max_items, seed)?;
+    let items_s = t.elapsed().as_secs_f64();
+    drop(items);
     let mut per_layer = Vec::new();
     for &l in &layers {
         let t = Instant::now();
@@ -57,6 +62,7 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
         "n_items": r.n_items,
         "n_items_used": r.n_items_used,
         "n_item_pairs": r.n_item_pairs,
+        "seconds_items": items_s,
         "seconds_per_layer": per_layer,
         "seconds_total": total,
         "records": r.records,
