@@ -18,3 +18,26 @@ pub struct AbxRecord {
     /// Triplets scored.
     pub n_triplets: u64,
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn record_round_trips_through_json() {
+        let r = AbxRecord {
+            layer: 3,
+            label: "phone".into(),
+            condition: "across".into(),
+            error_rate: 0.125,
+            n_pairs: 12,
+            n_triplets: 4096,
+        };
+        let text = serde_json::to_string(&r).unwrap();
+        assert_eq!(
+            text,
+            r#"{"layer":3,"label":"phone","condition":"across","error_rate":0.125,"n_pairs":12,"n_triplets":4096}"#
+        );
+        assert_eq!(serde_json::from_str::<AbxRecord>(&text).unwrap(), r);
+    }
+}
