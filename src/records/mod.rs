@@ -3,6 +3,7 @@
 //! derives both `Serialize` and `Deserialize`; a JSON `null` in a float field (how
 //! `serde_json` writes NaN) reads back as NaN through [`nan`].
 
+pub mod abx;
 pub mod compare;
 pub mod inspect;
 pub mod map;
