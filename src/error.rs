@@ -1,6 +1,7 @@
 //! The one place where stage errors become the CLI's exit codes: 2 for bad input (the user
 //! can fix it), 1 for internal failure.
 
+use crate::analysis::abx::AbxError;
 use crate::analysis::compare::CompareError;
 use crate::analysis::map::MapError;
 use crate::analysis::probe::ProbeError;
@@ -15,6 +16,9 @@ pub enum Error {
     /// Reading a capture failed.
     #[error(transparent)]
     Capture(#[from] CaptureError),
+    /// The ABX analysis failed.
+    #[error(transparent)]
+    Abx(#[from] AbxError),
     /// Comparing two captures failed.
     #[error(transparent)]
     Compare(#[from] CompareError),
@@ -52,6 +56,8 @@ impl Error {
             Error::Output(OutputError::Refused { .. }) => 2,
             Error::Compare(_) => 2,
             Error::Report(e) if e.is_input() => 2,
+            Error::Abx(e) if e.is_input() => 2,
+            Error::Abx(_) => 1,
             Error::Report(_) => 1,
             Error::Probe(ProbeError::Input(_)) => 2,
             Error::Probe(ProbeError::Internal(_)) => 1,

@@ -2,6 +2,7 @@
 //! analyse, write records, draw figures, print the summary and notes. `report` calls the same
 //! writers on the results it holds in memory.
 
+pub mod abx;
 pub mod compare;
 pub mod demo;
 pub mod inspect;

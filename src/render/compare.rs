@@ -7,7 +7,7 @@ use plotters::coord::types::RangedCoordf64;
 use plotters::coord::Shift;
 use plotters::prelude::*;
 
-use crate::analysis::compare::{CompareReport, ProbeDelta};
+use crate::records::compare::{CompareReport, Kernel, ProbeDelta};
 use crate::render::{category_colours, e2s, ramp, text};
 
 /// Most layers per axis for which the values are printed in the cells.
@@ -41,8 +41,8 @@ impl CkaHeatmap {
             })
             .collect();
         let kernel = match r.kernel {
-            crate::analysis::compare::Kernel::Linear => "linear CKA",
-            crate::analysis::compare::Kernel::Rbf => "RBF CKA",
+            Kernel::Linear => "linear CKA",
+            Kernel::Rbf => "RBF CKA",
         };
         CkaHeatmap {
             names: (r.captures[0].name.clone(), r.captures[1].name.clone()),
@@ -485,7 +485,7 @@ mod tests {
             ci_low: b - a - 0.06,
             ci_high: b - a + 0.06,
             mcnemar_p: 0.01,
-            mcnemar_method: crate::analysis::stats::McNemarMethod::ChiSquare,
+            mcnemar_method: crate::records::compare::McNemarMethod::ChiSquare,
             b: 3,
             c: 20,
         }

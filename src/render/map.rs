@@ -9,8 +9,8 @@ use rand::SeedableRng;
 use rand_chacha::ChaCha8Rng;
 
 use super::{category_colours, e2s, palette::OTHER, text, Figure, FONT};
-use crate::analysis::map::{MapReport, SampleLabels};
 use crate::capture::UNLABELLED;
+use crate::records::map::{MapReport, PurityRecord, SampleLabels};
 
 /// Most legend entries before grouping into "other".
 pub const MAX_LEGEND: usize = 20;
@@ -211,7 +211,7 @@ impl<'a> PurityCurves<'a> {
     }
 }
 
-type Getter = fn(&crate::analysis::map::PurityRecord) -> Option<f64>;
+type Getter = fn(&PurityRecord) -> Option<f64>;
 
 const METRICS: [(&str, Getter); 8] = [
     ("k-NN purity (full space)", |r| r.knn_purity),

@@ -5,6 +5,7 @@
 //! read records only; the report page ([`page`]) and the terminal summaries ([`summary`])
 //! too. Nothing here computes an analysis or writes a file.
 
+pub mod abx;
 pub mod compare;
 pub mod map;
 pub mod page;

@@ -8,7 +8,7 @@ use plotters::style::text_anchor::{HPos, Pos, VPos};
 use plotters::style::FontTransform;
 
 use super::{category_colours, e2s, ramp, text};
-use crate::analysis::probe::{BestConfusion, ProbeReport};
+use crate::records::probe::{BestConfusion, ProbeReport};
 
 /// One task's curves.
 struct TaskCurves {

@@ -146,6 +146,21 @@ pub fn map(s: &MapSummary) -> String {
     out
 }
 
+/// What `abx` prints: error rates within and across speaker at the first and last layer.
+pub fn abx(capture: &str, records: &[crate::records::abx::AbxRecord]) -> String {
+    let mut out = format!("ABX: {capture}\n");
+    for cond in ["within", "across"] {
+        let rows: Vec<_> = records.iter().filter(|r| r.condition == cond).collect();
+        if let (Some(first), Some(last)) = (rows.first(), rows.last()) {
+            out.push_str(&format!(
+                "  {cond:<6} speaker: error {:.3} at layer {} -> {:.3} at layer {} ({} triplets at the last)\n",
+                first.error_rate, first.layer, last.error_rate, last.layer, last.n_triplets
+            ));
+        }
+    }
+    out
+}
+
 /// Human-readable size.
 pub fn human_bytes(b: u64) -> String {
     let units = ["B", "KiB", "MiB", "GiB", "TiB"];

@@ -367,8 +367,8 @@ mod page_tests {
         }
     }
 
-    fn summary(name: &str) -> crate::analysis::inspect::Summary {
-        crate::analysis::inspect::Summary {
+    fn summary(name: &str) -> crate::records::inspect::Summary {
+        crate::records::inspect::Summary {
             name: name.into(),
             path: format!("/data/{name}"),
             label_source: "frames.tsv".into(),
