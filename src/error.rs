@@ -53,8 +53,8 @@ impl Error {
             Error::Compare(_) => 2,
             Error::Report(e) if e.is_input() => 2,
             Error::Report(_) => 1,
-            Error::Probe(ProbeError::Input(_)) => 2,
             Error::Probe(ProbeError::Internal(_)) => 1,
+            Error::Probe(ProbeError::Input(_) | ProbeError::Capture(_)) => 2,
             Error::Output(_) | Error::Plot(_) | Error::NotYet(_) | Error::Internal(_) => 1,
         }
     }
