@@ -50,11 +50,12 @@ impl Error {
         match self {
             Error::Capture(_) | Error::Input(_) | Error::Map(_) => 2,
             Error::Output(OutputError::Refused { .. }) => 2,
-            Error::Compare(_) => 2,
             Error::Report(e) if e.is_input() => 2,
             Error::Report(_) => 1,
             Error::Probe(ProbeError::Internal(_)) => 1,
             Error::Probe(ProbeError::Input(_) | ProbeError::Capture(_)) => 2,
+            Error::Compare(CompareError::Internal(_)) => 1,
+            Error::Compare(_) => 2,
             Error::Output(_) | Error::Plot(_) | Error::NotYet(_) | Error::Internal(_) => 1,
         }
     }
