@@ -34,7 +34,7 @@ pub enum Error {
     /// The probe stage failed.
     #[error(transparent)]
     Probe(#[from] ProbeError),
-    /// The map stage found bad input.
+    /// The map stage failed.
     #[error(transparent)]
     Map(#[from] MapError),
     /// Bad input found by an analysis (options that do not fit the data).
@@ -49,18 +49,21 @@ pub enum Error {
 }
 
 impl Error {
-    /// Exit code: 2 for bad input, 1 for internal failure.
+    /// Exit code: 2 for bad input (unreadable captures included), 1 for internal failure.
     pub fn exit_code(&self) -> i32 {
         match self {
-            Error::Capture(_) | Error::Input(_) | Error::Map(_) => 2,
+            Error::Capture(_) | Error::Input(_) => 2,
             Error::Output(OutputError::Refused { .. }) => 2,
-            Error::Compare(_) => 2,
             Error::Report(e) if e.is_input() => 2,
             Error::Abx(e) if e.is_input() => 2,
             Error::Abx(_) => 1,
             Error::Report(_) => 1,
-            Error::Probe(ProbeError::Input(_)) => 2,
             Error::Probe(ProbeError::Internal(_)) => 1,
+            Error::Probe(ProbeError::Input(_) | ProbeError::Capture(_)) => 2,
+            Error::Map(MapError::Internal(_)) => 1,
+            Error::Map(_) => 2,
+            Error::Compare(CompareError::Internal(_)) => 1,
+            Error::Compare(_) => 2,
             Error::Output(_) | Error::Plot(_) | Error::NotYet(_) | Error::Internal(_) => 1,
         }
     }

@@ -15,20 +15,20 @@
 
 pub mod cka;
 pub mod delta;
-
-use std::collections::HashMap;
+mod pair;
 
 use ndarray::Array2;
 use rand_chacha::rand_core::SeedableRng;
 use rand_chacha::ChaCha8Rng;
 use serde::Serialize;
 
-use crate::capture::{Capture, CaptureError, UNLABELLED};
+use crate::capture::{Capture, CaptureError, FrameTable, LabelTask, UNLABELLED};
 use crate::records::CaptureRef;
 use crate::{CommonOptions, Progress};
 
 pub use crate::records::compare::{CkaRecord, CompareReport, Estimator, Kernel, MatchBy, Pairing};
 pub use delta::{FitPredict, ProbeDelta};
+pub use pair::{pair_frames, FrameMismatch};
 
 use crate::analysis::seed::mix;
 
@@ -41,26 +41,12 @@ pub enum CompareError {
     /// Options that do not fit the data (exit code 2).
     #[error("{0}")]
     Input(String),
-    /// A capture could not be read.
+    /// A capture could not be read (exit code 2).
     #[error(transparent)]
     Capture(#[from] CaptureError),
-}
-
-/// Where two captures' frames first differ.
-#[derive(Debug)]
-pub struct FrameMismatch {
-    /// Capture A's folder.
-    pub path_a: String,
-    /// Capture B's folder.
-    pub path_b: String,
-    /// Frame (row) index, counting from 0.
-    pub row: usize,
-    /// The differing field.
-    pub field: String,
-    /// A's value.
-    pub expected: String,
-    /// B's value.
-    pub found: String,
+    /// A broken invariant inside the comparison (exit code 1).
+    #[error("internal error: {0}")]
+    Internal(String),
 }
 
 /// Options of `voxstrata compare`.
@@ -137,162 +123,6 @@ impl Default for CompareOptions {
 /// Largest subsample RBF CKA accepts (its n × n matrices grow quadratically).
 pub const RBF_MAX_FRAMES: usize = 10_000;
 
-fn label_name(task: &crate::capture::LabelTask, r: usize) -> String {
-    match task.codes[r] {
-        UNLABELLED => "(unlabelled)".to_string(),
-        c => task.classes[c as usize].clone(),
-    }
-}
-
-/// Pair the frames of A and B (see [`MatchBy`]), checking that paired frames agree on
-/// utterance, speaker and every label task present in both.
-pub fn pair_frames(a: &Capture, b: &Capture, how: MatchBy) -> Result<Pairing, CompareError> {
-    let (fa, fb) = (&a.frames, &b.frames);
-    let mismatch = |row: usize, field: &str, e: String, f: String| {
-        CompareError::FrameMismatch(Box::new(FrameMismatch {
-            path_a: a.dir.display().to_string(),
-            path_b: b.dir.display().to_string(),
-            row,
-            field: field.to_string(),
-            expected: e,
-            found: f,
-        }))
-    };
-    let utt =
-        |t: &crate::capture::FrameTable, r: usize| t.utterances[t.frame_utt[r] as usize].clone();
-    let spk = |t: &crate::capture::FrameTable, r: usize| {
-        t.speakers[t.utt_speaker[t.frame_utt[r] as usize] as usize].clone()
-    };
-    let shared_tasks: Vec<(usize, usize)> = fa
-        .tasks
-        .iter()
-        .enumerate()
-        .filter_map(|(i, t)| {
-            fb.tasks
-                .iter()
-                .position(|u| u.name == t.name)
-                .map(|j| (i, j))
-        })
-        .collect();
-    let (rows_a, rows_b) = match how {
-        MatchBy::Row => {
-            let n = fa.n_frames().min(fb.n_frames());
-            for r in 0..n {
-                if utt(fa, r) != utt(fb, r) {
-                    return Err(mismatch(r, "utterance", utt(fa, r), utt(fb, r)));
-                }
-                if spk(fa, r) != spk(fb, r) {
-                    return Err(mismatch(r, "speaker", spk(fa, r), spk(fb, r)));
-                }
-                for &(i, j) in &shared_tasks {
-                    let (x, y) = (label_name(&fa.tasks[i], r), label_name(&fb.tasks[j], r));
-                    if x != y {
-                        return Err(mismatch(r, &format!("label '{}'", fa.tasks[i].name), x, y));
-                    }
-                }
-            }
-            if fa.n_frames() != fb.n_frames() {
-                return Err(mismatch(
-                    n,
-                    "frame count",
-                    format!("{} frames", fa.n_frames()),
-                    format!(
-                        "{} frames (use --match-by utterance to pair by utterance)",
-                        fb.n_frames()
-                    ),
-                ));
-            }
-            ((0..n).collect::<Vec<_>>(), (0..n).collect::<Vec<_>>())
-        }
-        MatchBy::Utterance => {
-            // Speakers must agree for every utterance present in both.
-            let b_utt: HashMap<&str, usize> = fb
-                .utterances
-                .iter()
-                .enumerate()
-                .map(|(i, u)| (u.as_str(), i))
-                .collect();
-            for (ia, u) in fa.utterances.iter().enumerate() {
-                if let Some(&ib) = b_utt.get(u.as_str()) {
-                    let sa = &fa.speakers[fa.utt_speaker[ia] as usize];
-                    let sb = &fb.speakers[fb.utt_speaker[ib] as usize];
-                    if sa != sb {
-                        let row = fb
-                            .frame_utt
-                            .iter()
-                            .position(|&x| x as usize == ib)
-                            .unwrap_or(0);
-                        return Err(mismatch(
-                            row,
-                            &format!("speaker of utterance '{u}'"),
-                            sa.clone(),
-                            sb.clone(),
-                        ));
-                    }
-                }
-            }
-            let key_b: HashMap<(u32, u32), usize> = (0..fb.n_frames())
-                .map(|r| ((fb.frame_utt[r], fb.frame_pos[r]), r))
-                .collect();
-            let mut ra = Vec::new();
-            let mut rb = Vec::new();
-            for r in 0..fa.n_frames() {
-                let Some(&ub) = b_utt.get(fa.utterances[fa.frame_utt[r] as usize].as_str()) else {
-                    continue;
-                };
-                if let Some(&s) = key_b.get(&(ub as u32, fa.frame_pos[r])) {
-                    for &(i, j) in &shared_tasks {
-                        let (x, y) = (label_name(&fa.tasks[i], r), label_name(&fb.tasks[j], s));
-                        if x != y {
-                            return Err(mismatch(
-                                s,
-                                &format!("label '{}'", fa.tasks[i].name),
-                                x,
-                                y,
-                            ));
-                        }
-                    }
-                    ra.push(r);
-                    rb.push(s);
-                }
-            }
-            (ra, rb)
-        }
-    };
-    // Frames zeroed for NaN/Inf (opened with allow_nonfinite) carry no activations to compare.
-    let (rows_a, rows_b) = if a.nonfinite_frames.is_empty() && b.nonfinite_frames.is_empty() {
-        (rows_a, rows_b)
-    } else {
-        rows_a
-            .into_iter()
-            .zip(rows_b)
-            .filter(|(x, y)| {
-                a.nonfinite_frames.binary_search(x).is_err()
-                    && b.nonfinite_frames.binary_search(y).is_err()
-            })
-            .unzip()
-    };
-    let paired = rows_a.len();
-    if paired == 0 {
-        return Err(CompareError::Input(format!(
-            "{} and {}: no frames could be paired (no utterance appears in both)",
-            a.dir.display(),
-            b.dir.display()
-        )));
-    }
-    Ok(Pairing {
-        match_by: how,
-        frames_a: fa.n_frames(),
-        frames_b: fb.n_frames(),
-        paired,
-        dropped_a: fa.n_frames() - paired,
-        dropped_b: fb.n_frames() - paired,
-        used: paired,
-        rows_a,
-        rows_b,
-    })
-}
-
 /// Reads one layer's rows for the pairs in use: the whole file when the rows are 0..n.
 struct RowReader<'a> {
     cap: &'a Capture,
@@ -331,27 +161,14 @@ pub fn run(
     opts: &CompareOptions,
     common: &CommonOptions,
     progress: &Progress,
-) -> Result<CompareReport, crate::Error> {
+) -> Result<CompareReport, CompareError> {
     opts.check()?;
     let sel_a = a.select_layers(common.layers.as_ref())?;
     let sel_b = b.select_layers(common.layers.as_ref())?;
     let mut pairing = pair_frames(a, b, opts.match_by)?;
-    let limit = match opts.kernel {
-        Kernel::Linear => opts.max_frames,
-        Kernel::Rbf => {
-            let k = opts.max_frames.unwrap_or(opts.rbf_frames);
-            if k > RBF_MAX_FRAMES {
-                return Err(CompareError::Input(format!(
-                    "--max-frames with --kernel rbf: expected at most {RBF_MAX_FRAMES} (n × n kernel matrices), found {k}"
-                ))
-                .into());
-            }
-            Some(k)
-        }
-    };
     let keep = crate::select::sample::uniform_sorted(
         pairing.paired,
-        limit.unwrap_or(usize::MAX),
+        cka_limit(opts)?.unwrap_or(usize::MAX),
         common.seed ^ 0xc0a1_0001,
     );
     pairing.used = keep.len();
@@ -359,37 +176,125 @@ pub fn run(
         return Err(CompareError::Input(format!(
             "only {} paired frames: too few to compare",
             pairing.used
-        ))
-        .into());
+        )));
     }
     let rows_a: Vec<usize> = keep.iter().map(|&k| pairing.rows_a[k]).collect();
     let rows_b: Vec<usize> = keep.iter().map(|&k| pairing.rows_b[k]).collect();
-    let symmetric = same_capture(a, b) && rows_a == rows_b && sel_a == sel_b;
-
+    let layers = LayerPair {
+        a,
+        b,
+        sel_a: &sel_a,
+        sel_b: &sel_b,
+    };
+    let mat = cka_matrix(&layers, rows_a, rows_b, opts, common.seed, progress)?;
     let ids_a: Vec<usize> = sel_a.iter().map(|&i| a.layers[i].id).collect();
     let ids_b: Vec<usize> = sel_b.iter().map(|&i| b.layers[i].id).collect();
-    let mat = match (opts.kernel, opts.estimator) {
-        (Kernel::Linear, Estimator::Full) => linear_matrix(
-            a,
-            b,
-            &sel_a,
-            &sel_b,
-            RowReader::new(a, rows_a.clone()),
-            RowReader::new(b, rows_b.clone()),
-            symmetric,
-            progress,
-        )?,
+    let cka = cka_records(&ids_a, &ids_b, &mat, opts, pairing.used);
+    let mut notes = Vec::new();
+    if pairing.dropped_a + pairing.dropped_b > 0 {
+        notes.push(format!(
+            "{} frames paired by utterance; {} frames of A and {} of B had no partner and were left out",
+            pairing.paired, pairing.dropped_a, pairing.dropped_b
+        ));
+    }
+    let probe_delta = if opts.probe {
+        all_probe_deltas(&layers, &pairing, opts, common, progress, &mut notes)?
+    } else {
+        Vec::new()
+    };
+    let options = serde_json::to_value(opts).map_err(|e| CompareError::Internal(e.to_string()))?;
+    Ok(CompareReport {
+        captures: vec![capture_ref(a), capture_ref(b)],
+        layers_a: ids_a,
+        layers_b: ids_b,
+        pairing,
+        cka,
+        probe_delta,
+        notes,
+        options,
+        kernel: opts.kernel,
+        estimator: opts.estimator,
+    })
+}
+
+fn capture_ref(c: &Capture) -> CaptureRef {
+    CaptureRef {
+        name: c.name.clone(),
+        path: c.dir.display().to_string(),
+    }
+}
+
+/// The two captures and the layers selected in each (indices).
+struct LayerPair<'a> {
+    a: &'a Capture,
+    b: &'a Capture,
+    sel_a: &'a [usize],
+    sel_b: &'a [usize],
+}
+
+/// Most paired frames CKA uses: `--max-frames` (none: all) for the linear kernel; for RBF
+/// `--max-frames` or the RBF default, refused above [`RBF_MAX_FRAMES`].
+fn cka_limit(opts: &CompareOptions) -> Result<Option<usize>, CompareError> {
+    match opts.kernel {
+        Kernel::Linear => Ok(opts.max_frames),
+        Kernel::Rbf => {
+            let k = opts.max_frames.unwrap_or(opts.rbf_frames);
+            if k > RBF_MAX_FRAMES {
+                return Err(CompareError::Input(format!(
+                    "--max-frames with --kernel rbf: expected at most {RBF_MAX_FRAMES} (n × n kernel matrices), found {k}"
+                )));
+            }
+            Ok(Some(k))
+        }
+    }
+}
+
+/// CKA between every selected layer of A (rows) and of B (columns) on the paired rows in use,
+/// with the kernel and estimator of `opts`.
+fn cka_matrix(
+    l: &LayerPair,
+    rows_a: Vec<usize>,
+    rows_b: Vec<usize>,
+    opts: &CompareOptions,
+    seed: u64,
+    progress: &Progress,
+) -> Result<Array2<f64>, CaptureError> {
+    let (a, b, sel_a, sel_b) = (l.a, l.b, l.sel_a, l.sel_b);
+    match (opts.kernel, opts.estimator) {
+        (Kernel::Linear, Estimator::Full) => {
+            let symmetric = same_capture(a, b) && rows_a == rows_b && sel_a == sel_b;
+            linear_matrix(
+                a,
+                b,
+                sel_a,
+                sel_b,
+                RowReader::new(a, rows_a),
+                RowReader::new(b, rows_b),
+                symmetric,
+                progress,
+            )
+        }
         (Kernel::Linear, Estimator::Minibatch) => {
             // Shuffle the pairs once (seeded) so each batch mixes utterances and speakers.
             let mut order: Vec<usize> = (0..rows_a.len()).collect();
-            let mut rng = ChaCha8Rng::seed_from_u64(common.seed ^ 0xc0a1_0002);
+            let mut rng = ChaCha8Rng::seed_from_u64(seed ^ 0xc0a1_0002);
             rand::seq::SliceRandom::shuffle(order.as_mut_slice(), &mut rng);
             let ra: Vec<usize> = order.iter().map(|&k| rows_a[k]).collect();
             let rb: Vec<usize> = order.iter().map(|&k| rows_b[k]).collect();
-            minibatch_matrix(a, b, &sel_a, &sel_b, &ra, &rb, opts.batch_size, progress)?
+            minibatch_matrix(a, b, sel_a, sel_b, &ra, &rb, opts.batch_size, progress)
         }
-        (Kernel::Rbf, _) => rbf_matrix(a, b, &sel_a, &sel_b, &rows_a, &rows_b, progress)?,
-    };
+        (Kernel::Rbf, _) => rbf_matrix(a, b, sel_a, sel_b, &rows_a, &rows_b, progress),
+    }
+}
+
+/// One record per (A layer, B layer) of the matrix, A's layers outermost.
+fn cka_records(
+    ids_a: &[usize],
+    ids_b: &[usize],
+    mat: &Array2<f64>,
+    opts: &CompareOptions,
+    n_frames: usize,
+) -> Vec<CkaRecord> {
     let mut cka = Vec::with_capacity(ids_a.len() * ids_b.len());
     for (i, &la) in ids_a.iter().enumerate() {
         for (j, &lb) in ids_b.iter().enumerate() {
@@ -399,59 +304,41 @@ pub fn run(
                 cka: mat[[i, j]],
                 kernel: opts.kernel,
                 estimator: opts.estimator,
-                n_frames: pairing.used,
+                n_frames,
             });
         }
     }
-    let mut notes = Vec::new();
-    if pairing.dropped_a + pairing.dropped_b > 0 {
-        notes.push(format!(
-            "{} frames paired by utterance; {} frames of A and {} of B had no partner and were left out",
-            pairing.paired, pairing.dropped_a, pairing.dropped_b
-        ));
-    }
-    let probe_delta = if opts.probe {
-        let shared: Vec<(usize, usize)> = sel_a
-            .iter()
-            .filter_map(|&ia| {
-                b.layer_index(a.layers[ia].id)
-                    .filter(|ib| sel_b.contains(ib))
-                    .map(|ib| (ia, ib))
-            })
-            .collect();
-        // Probes use all paired frames or the --max-frames sample (not the RBF subsample).
-        let keep = crate::select::sample::uniform_sorted(
-            pairing.paired,
-            opts.max_frames.unwrap_or(usize::MAX),
-            common.seed ^ 0xc0a1_0001,
-        );
-        let ra: Vec<usize> = keep.iter().map(|&k| pairing.rows_a[k]).collect();
-        let rb: Vec<usize> = keep.iter().map(|&k| pairing.rows_b[k]).collect();
-        probe_deltas(a, b, &shared, &ra, &rb, opts, common, progress, &mut notes)?
-    } else {
-        Vec::new()
-    };
-    Ok(CompareReport {
-        captures: vec![
-            CaptureRef {
-                name: a.name.clone(),
-                path: a.dir.display().to_string(),
-            },
-            CaptureRef {
-                name: b.name.clone(),
-                path: b.dir.display().to_string(),
-            },
-        ],
-        layers_a: ids_a,
-        layers_b: ids_b,
-        pairing,
-        cka,
-        probe_delta,
-        notes,
-        options: serde_json::to_value(opts).map_err(|e| crate::Error::Internal(e.to_string()))?,
-        kernel: opts.kernel,
-        estimator: opts.estimator,
-    })
+    cka
+}
+
+/// Probe deltas on every layer number selected in both captures, on all paired frames or the
+/// `--max-frames` sample (not the RBF subsample).
+fn all_probe_deltas(
+    l: &LayerPair,
+    pairing: &Pairing,
+    opts: &CompareOptions,
+    common: &CommonOptions,
+    progress: &Progress,
+    notes: &mut Vec<String>,
+) -> Result<Vec<ProbeDelta>, CompareError> {
+    let (a, b) = (l.a, l.b);
+    let shared: Vec<(usize, usize)> = l
+        .sel_a
+        .iter()
+        .filter_map(|&ia| {
+            b.layer_index(a.layers[ia].id)
+                .filter(|ib| l.sel_b.contains(ib))
+                .map(|ib| (ia, ib))
+        })
+        .collect();
+    let keep = crate::select::sample::uniform_sorted(
+        pairing.paired,
+        opts.max_frames.unwrap_or(usize::MAX),
+        common.seed ^ 0xc0a1_0001,
+    );
+    let ra: Vec<usize> = keep.iter().map(|&k| pairing.rows_a[k]).collect();
+    let rb: Vec<usize> = keep.iter().map(|&k| pairing.rows_b[k]).collect();
+    probe_deltas(a, b, &shared, &ra, &rb, opts, common, progress, notes)
 }
 
 /// Linear CKA matrix, streaming: for each A layer (read once), loop over B layers. B's Gram
@@ -615,11 +502,36 @@ fn plan_deltas(
     seed: u64,
     notes: &mut Vec<String>,
 ) -> Result<Vec<DeltaPlan>, CompareError> {
-    use crate::select::split::{make_split, SplitKind, SplitOptions};
-    let fa = &a.frames;
+    let names = delta_task_names(a, b, opts)?;
+    let spk = a.frames.frame_speaker();
+    let mut plans = Vec::new();
+    for (ti, name) in names.iter().enumerate() {
+        let Some(task) = a.frames.task(name) else {
+            continue;
+        };
+        let rows = DeltaRows {
+            frames: &a.frames,
+            speaker: &spk,
+            rows_a,
+        };
+        let split_seed = mix(seed, 600 + ti as u64);
+        if let Some(p) = plan_delta(&rows, task, name, opts, split_seed, notes) {
+            plans.push(p);
+        }
+    }
+    Ok(plans)
+}
+
+/// The delta tasks (default: A's default tasks that B carries too, and `speaker`), each
+/// checked to be a label column of both captures.
+fn delta_task_names(
+    a: &Capture,
+    b: &Capture,
+    opts: &CompareOptions,
+) -> Result<Vec<String>, CompareError> {
     let names: Vec<String> = if opts.tasks.is_empty() {
         // Paired captures carry the same label columns (checked by the pairing).
-        let mut v = fa.default_tasks();
+        let mut v = a.frames.default_tasks();
         v.retain(|n| b.frames.task(n).is_some() || n == "speaker");
         v
     } else {
@@ -636,93 +548,122 @@ fn plan_deltas(
             }
         }
     }
-    let spk = fa.frame_speaker();
-    let mut plans = Vec::new();
-    for (ti, name) in names.iter().enumerate() {
-        let Some(task) = fa.task(name) else { continue };
-        let speaker_task = name == "speaker";
-        // Classes present among the rows in use, renumbered 0..k.
-        let mut remap = vec![UNLABELLED; task.classes.len()];
-        let mut k = 0u32;
-        let mut labels = Vec::with_capacity(rows_a.len());
-        for &r in rows_a {
-            let c = task.codes[r];
-            if c == UNLABELLED {
-                labels.push(UNLABELLED);
-                continue;
-            }
-            if remap[c as usize] == UNLABELLED {
-                remap[c as usize] = k;
-                k += 1;
-            }
-            labels.push(remap[c as usize]);
-        }
-        let items: Vec<usize> = (0..rows_a.len())
-            .filter(|&i| labels[i] != UNLABELLED)
-            .collect();
-        if k < 2 || items.len() < 4 {
-            notes.push(format!(
-                "probe deltas for '{name}' skipped: fewer than 2 classes or 4 labelled frames"
-            ));
+    Ok(names)
+}
+
+/// A's frame table, each frame's speaker, and A's rows of the pairs in use.
+struct DeltaRows<'a> {
+    frames: &'a FrameTable,
+    speaker: &'a [u32],
+    rows_a: &'a [usize],
+}
+
+/// The task's class per row in use, the classes present renumbered `0..k` in order of first
+/// appearance (`UNLABELLED` kept), and `k`.
+fn renumber_labels(task: &LabelTask, rows_a: &[usize]) -> (Vec<u32>, u32) {
+    let mut remap = vec![UNLABELLED; task.classes.len()];
+    let mut k = 0u32;
+    let mut labels = Vec::with_capacity(rows_a.len());
+    for &r in rows_a {
+        let c = task.codes[r];
+        if c == UNLABELLED {
+            labels.push(UNLABELLED);
             continue;
         }
-        let utt: Vec<u32> = items.iter().map(|&i| fa.frame_utt[rows_a[i]]).collect();
-        let sp: Vec<u32> = items.iter().map(|&i| spk[rows_a[i]]).collect();
-        let sopts = SplitOptions {
-            test_fraction: opts.test_fraction,
-            folds: 1,
-        };
-        let split = match make_split(
-            SplitKind::Auto,
-            speaker_task,
-            &utt,
-            &sp,
-            &sopts,
-            mix(seed, 600 + ti as u64),
-        ) {
-            Ok(s) => s,
-            Err(e) => {
-                notes.push(format!("probe deltas for '{name}' skipped: {e}"));
-                continue;
-            }
-        };
-        let Some(fold) = split.folds.first() else {
-            continue;
-        };
-        if fold.train.is_empty() || fold.test.is_empty() {
-            notes.push(format!(
-                "probe deltas for '{name}' skipped: the split left one side empty"
-            ));
-            continue;
+        if remap[c as usize] == UNLABELLED {
+            remap[c as usize] = k;
+            k += 1;
         }
-        let mut test_clusters: Vec<u32> = fold
-            .test
-            .iter()
-            .map(|&j| if speaker_task { utt[j] } else { sp[j] })
-            .collect();
-        test_clusters.sort_unstable();
-        test_clusters.dedup();
-        if test_clusters.len() < 5 {
-            notes.push(format!(
-                "probe deltas for '{name}': only {} test {} — the bootstrap intervals resample so few clusters that they are unreliable",
-                test_clusters.len(),
-                if speaker_task { "utterances" } else { "speakers" }
-            ));
-        }
-        let mut groups = vec![0u32; rows_a.len()];
-        for (j, &i) in items.iter().enumerate() {
-            groups[i] = if speaker_task { utt[j] } else { sp[j] };
-        }
-        plans.push(DeltaPlan {
-            name: name.clone(),
-            labels,
-            n_classes: k as usize,
-            groups,
-            train: fold.train.iter().map(|&j| items[j]).collect(),
-            test: fold.test.iter().map(|&j| items[j]).collect(),
-        });
+        labels.push(remap[c as usize]);
     }
-    Ok(plans)
+    (labels, k)
+}
+
+/// Plan one delta task: its labelled rows split once (seeded with `split_seed`); None, with a
+/// note, when the task cannot be split.
+fn plan_delta(
+    rows: &DeltaRows,
+    task: &LabelTask,
+    name: &str,
+    opts: &CompareOptions,
+    split_seed: u64,
+    notes: &mut Vec<String>,
+) -> Option<DeltaPlan> {
+    use crate::select::split::{make_split, SplitKind, SplitOptions};
+    let rows_a = rows.rows_a;
+    let speaker_task = name == "speaker";
+    let (labels, k) = renumber_labels(task, rows_a);
+    let items: Vec<usize> = (0..rows_a.len())
+        .filter(|&i| labels[i] != UNLABELLED)
+        .collect();
+    if k < 2 || items.len() < 4 {
+        notes.push(format!(
+            "probe deltas for '{name}' skipped: fewer than 2 classes or 4 labelled frames"
+        ));
+        return None;
+    }
+    let utt: Vec<u32> = items
+        .iter()
+        .map(|&i| rows.frames.frame_utt[rows_a[i]])
+        .collect();
+    let sp: Vec<u32> = items.iter().map(|&i| rows.speaker[rows_a[i]]).collect();
+    let sopts = SplitOptions {
+        test_fraction: opts.test_fraction,
+        folds: 1,
+    };
+    let split = match make_split(SplitKind::Auto, speaker_task, &utt, &sp, &sopts, split_seed) {
+        Ok(s) => s,
+        Err(e) => {
+            notes.push(format!("probe deltas for '{name}' skipped: {e}"));
+            return None;
+        }
+    };
+    let fold = split.folds.first()?;
+    if fold.train.is_empty() || fold.test.is_empty() {
+        notes.push(format!(
+            "probe deltas for '{name}' skipped: the split left one side empty"
+        ));
+        return None;
+    }
+    // Inner-split group and bootstrap cluster: the utterance for the speaker task.
+    let cluster = |j: usize| if speaker_task { utt[j] } else { sp[j] };
+    note_few_clusters(
+        fold.test.iter().map(|&j| cluster(j)),
+        name,
+        speaker_task,
+        notes,
+    );
+    let mut groups = vec![0u32; rows_a.len()];
+    for (j, &i) in items.iter().enumerate() {
+        groups[i] = cluster(j);
+    }
+    Some(DeltaPlan {
+        name: name.to_string(),
+        labels,
+        n_classes: k as usize,
+        groups,
+        train: fold.train.iter().map(|&j| items[j]).collect(),
+        test: fold.test.iter().map(|&j| items[j]).collect(),
+    })
+}
+
+/// Note when fewer than 5 test clusters make the bootstrap intervals unreliable.
+fn note_few_clusters(
+    test_clusters: impl Iterator<Item = u32>,
+    name: &str,
+    speaker_task: bool,
+    notes: &mut Vec<String>,
+) {
+    let mut test_clusters: Vec<u32> = test_clusters.collect();
+    test_clusters.sort_unstable();
+    test_clusters.dedup();
+    if test_clusters.len() < 5 {
+        notes.push(format!(
+            "probe deltas for '{name}': only {} test {} — the bootstrap intervals resample so few clusters that they are unreliable",
+            test_clusters.len(),
+            if speaker_task { "utterances" } else { "speakers" }
+        ));
+    }
 }
 
 /// The shipped probe (softmax regression with its penalty search, from [`crate::analysis::probe`]).
@@ -765,7 +706,7 @@ fn probe_deltas(
     common: &CommonOptions,
     progress: &Progress,
     notes: &mut Vec<String>,
-) -> Result<Vec<ProbeDelta>, crate::Error> {
+) -> Result<Vec<ProbeDelta>, CompareError> {
     let plans = plan_deltas(a, b, rows_a, opts, common.seed, notes)?;
     if shared.is_empty() || plans.is_empty() {
         if shared.is_empty() {
@@ -811,7 +752,7 @@ fn probe_deltas(
             let seed = mix(common.seed, 800 + (layer as u64) * 1000 + ti as u64);
             let d = delta::probe_delta(&xa.view(), &xb.view(), &input, &probe, &dopts, seed)
                 .map_err(|e| {
-                    crate::Error::Internal(format!(
+                    CompareError::Internal(format!(
                         "probe delta, layer {layer}, task {}: {e}",
                         p.name
                     ))

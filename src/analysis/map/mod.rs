@@ -11,16 +11,18 @@
 pub mod pca;
 pub mod tsne;
 
-use ndarray::Array2;
+use ndarray::{Array2, ArrayView2};
 use serde::Serialize;
 
 use crate::analysis::purity;
-use crate::capture::{Capture, UNLABELLED};
+use crate::capture::{Capture, CaptureError, UNLABELLED};
+use crate::progress::Step;
 pub use crate::records::map::{LayerMap, MapReport, PurityRecord, SampleLabels, Summary};
 use crate::records::CaptureRef;
-use crate::{CommonOptions, Error, Progress};
+use crate::select::sample::Sample;
+use crate::{CommonOptions, Progress};
 
-/// Errors of the map stage (bad input: exit code 2).
+/// Errors of the map stage (bad input and unreadable captures: exit code 2; internal: 1).
 #[derive(Debug, thiserror::Error)]
 pub enum MapError {
     /// Too few frames to map.
@@ -46,6 +48,12 @@ pub enum MapError {
         /// Names available.
         available: String,
     },
+    /// A capture could not be read.
+    #[error(transparent)]
+    Capture(#[from] CaptureError),
+    /// A broken invariant inside the map stage.
+    #[error("internal error: {0}")]
+    Internal(String),
 }
 
 /// Which 2-D map to draw.
@@ -148,11 +156,74 @@ pub fn run(
     opts: &MapOptions,
     common: &CommonOptions,
     progress: &Progress,
-) -> Result<MapReport, Error> {
+) -> Result<MapReport, MapError> {
     let colourings = check_color_by(cap, opts)?;
     let layer_idx = cap.select_layers(common.layers.as_ref())?;
     let mut notes = Vec::new();
-    // strata: speaker × phone (or × the first other label when there is no phone)
+    let sample = draw_sample(cap, opts, common.seed, &mut notes)?;
+    let n = sample.frames.len();
+    let labels = sample_labels(cap, &sample.frames);
+    // Both k shrink on tiny samples (k-NN needs k < n; k-means at most a tenth of the
+    // sample); the values used are written to the options as knn_k_used and kmeans_k_used.
+    let metrics = LayerMetrics {
+        labels: &labels,
+        task_codes: labels.iter().map(|l| l.codes.as_slice()).collect(),
+        knn_k: opts.knn_k.min(n - 1),
+        kmeans_k: opts.kmeans_k.min((n / 10).max(2)),
+        kmeans_iterations: opts.kmeans_iterations,
+        seed: common.seed,
+    };
+    let total_iters = match opts.method {
+        Method::Tsne => (opts.tsne.early_iterations + opts.tsne.iterations) as u64,
+        Method::Pca => 1,
+    };
+    let step = progress.step("map", layer_idx.len() as u64 * (total_iters + 1));
+    let mut layers: Vec<LayerMap> = Vec::new();
+    let mut records = Vec::new();
+    let mut singleton_noted = vec![false; labels.len()];
+    for &li in &layer_idx {
+        let layer_id = cap.layers[li].id;
+        step.message(&format!("layer {layer_id}"));
+        let x = cap.read_layer_rows(li, &sample.frames)?;
+        let prev = layers.last().map(|l| l.embedding.view());
+        let map = map_layer(&x, layer_id, prev, opts, common.seed, &step);
+        records.extend(metrics.records(&x, &map, &mut singleton_noted, &mut notes));
+        step.inc(1);
+        layers.push(map);
+    }
+    drop(step);
+    let summary = summarise(&records);
+    let used = [
+        ("kmeans_k_used", metrics.kmeans_k),
+        ("knn_k_used", metrics.knn_k),
+        ("per_cell_used", sample.per_cell),
+    ];
+    let options = options_value(opts, common.seed, &used)?;
+    Ok(MapReport {
+        capture: CaptureRef {
+            name: cap.name.clone(),
+            path: cap.dir.display().to_string(),
+        },
+        frames: sample.frames.iter().map(|&f| f as u64).collect(),
+        layers,
+        labels,
+        records,
+        summary,
+        notes,
+        options,
+        colourings,
+    })
+}
+
+/// The stratified sample shared by all layers: speaker × phone cells (or × the first other
+/// label when there is no phone). Notes short cells and a lowered quota; refuses fewer than 3
+/// frames.
+fn draw_sample(
+    cap: &Capture,
+    opts: &MapOptions,
+    seed: u64,
+    notes: &mut Vec<String>,
+) -> Result<Sample, MapError> {
     let speaker = cap.frames.frame_speaker();
     let other = cap
         .frames
@@ -162,8 +233,7 @@ pub fn run(
     if let Some(t) = other {
         strata.push(&t.codes);
     }
-    let sample =
-        crate::select::sample::stratified(&strata, opts.per_label, opts.max_points, common.seed);
+    let sample = crate::select::sample::stratified(&strata, opts.per_label, opts.max_points, seed);
     let cell_name = match other {
         Some(t) => format!("speaker × {}", t.name),
         None => "speaker".into(),
@@ -190,105 +260,147 @@ pub fn run(
                 n,
                 other.map(|t| t.name.as_str()).unwrap_or("speaker")
             ),
-        }
-        .into());
+        });
     }
-    let labels: Vec<SampleLabels> = cap
-        .frames
+    Ok(sample)
+}
+
+/// Every label task's codes on the sampled frames.
+fn sample_labels(cap: &Capture, frames: &[usize]) -> Vec<SampleLabels> {
+    cap.frames
         .tasks
         .iter()
         .map(|t| SampleLabels {
             name: t.name.clone(),
             classes: t.classes.clone(),
-            codes: sample.frames.iter().map(|&f| t.codes[f]).collect(),
+            codes: frames.iter().map(|&f| t.codes[f]).collect(),
         })
-        .collect();
-    let task_codes: Vec<&[u32]> = labels.iter().map(|l| l.codes.as_slice()).collect();
-    // Both k shrink on tiny samples (k-NN needs k < n; k-means at most a tenth of the
-    // sample); the values used are written to the options as knn_k_used and kmeans_k_used.
-    let k = opts.knn_k.min(n - 1);
-    let kmeans_k = opts.kmeans_k.min((n / 10).max(2));
-    let total_iters = match opts.method {
-        Method::Tsne => (opts.tsne.early_iterations + opts.tsne.iterations) as u64,
-        Method::Pca => 1,
-    };
-    let step = progress.step("map", layer_idx.len() as u64 * (total_iters + 1));
-    let mut layers: Vec<LayerMap> = Vec::new();
-    let mut records = Vec::new();
-    let mut singleton_noted = vec![false; labels.len()];
-    for &li in &layer_idx {
-        let layer_id = cap.layers[li].id;
-        step.message(&format!("layer {layer_id}"));
-        let x = cap.read_layer_rows(li, &sample.frames)?;
-        let prev = layers.last().map(|l| l.embedding.view());
-        let (mut emb, ratios, solver, kl, perp, grad) = match opts.method {
-            Method::Pca => {
-                let p = pca::fit(&x.view(), 2, pca::PcaSolver::Auto, common.seed);
-                let mut e = p.transform(&x.view());
-                if e.ncols() < 2 {
-                    // one-dimensional data: pad with zeros so the map is still n × 2
-                    let mut z = Array2::<f32>::zeros((n, 2));
-                    z.column_mut(0).assign(&e.column(0));
-                    e = z;
-                }
-                step.inc(1);
-                (
-                    e,
-                    p.explained_variance_ratio.clone(),
-                    p.solver,
-                    None,
-                    None,
-                    None,
-                )
-            }
-            Method::Tsne => {
-                let p = pca::fit(&x.view(), opts.pca_dims, pca::PcaSolver::Auto, common.seed);
-                let reduced = p.transform(&x.view());
-                // Every layer runs the full schedule (early exaggeration, then the plain phase)
-                // from a start scaled to standard deviation 1e-4: the first layer's PCA, then
-                // the previous layer's finished map, so the panels keep one layout. Starting a
-                // later layer from the previous map at its own (expanded) scale was tried: on the
-                // demo it ended at a higher KL divergence (1.14 against 0.85 on layer 1) and cost
-                // more, since the FFT grid grows with the map's extent.
-                let init = match &prev {
-                    Some(pm) => tsne::rescale(pm, 1e-4),
-                    None => {
-                        let mut two = Array2::<f32>::zeros((n, 2));
-                        for c in 0..reduced.ncols().min(2) {
-                            two.column_mut(c).assign(&reduced.column(c));
-                        }
-                        tsne::rescale(&two.view(), 1e-4)
-                    }
-                };
-                let r = tsne::run(&reduced.view(), &init.view(), &opts.tsne, || step.inc(1));
-                (
-                    r.embedding,
-                    p.explained_variance_ratio.clone(),
-                    p.solver,
-                    Some(r.kl_divergence),
-                    Some(r.perplexity),
-                    Some(r.gradient),
-                )
-            }
-        };
-        if let Some(pm) = &prev {
-            pca::procrustes_align(&mut emb, pm);
+        .collect()
+}
+
+/// Map one layer's sampled rows `x` to 2-D with `opts.method`, aligned by Procrustes to the
+/// previous layer's map `prev` (t-SNE also starts from it).
+fn map_layer(
+    x: &Array2<f32>,
+    layer: usize,
+    prev: Option<ArrayView2<f32>>,
+    opts: &MapOptions,
+    seed: u64,
+    step: &Step,
+) -> LayerMap {
+    let mut map = match opts.method {
+        Method::Pca => {
+            let m = pca_map(x, layer, seed);
+            step.inc(1);
+            m
         }
-        // metrics
+        Method::Tsne => tsne_map(x, layer, prev.as_ref(), opts, seed, step),
+    };
+    if let Some(pm) = &prev {
+        pca::procrustes_align(&mut map.embedding, pm);
+    }
+    map
+}
+
+/// The first two principal components (padded with zeros for one-dimensional data).
+fn pca_map(x: &Array2<f32>, layer: usize, seed: u64) -> LayerMap {
+    let n = x.nrows();
+    let p = pca::fit(&x.view(), 2, pca::PcaSolver::Auto, seed);
+    let mut e = p.transform(&x.view());
+    if e.ncols() < 2 {
+        // one-dimensional data: pad with zeros so the map is still n × 2
+        let mut z = Array2::<f32>::zeros((n, 2));
+        z.column_mut(0).assign(&e.column(0));
+        e = z;
+    }
+    LayerMap {
+        layer,
+        explained_variance_ratio: p.explained_variance_ratio.clone(),
+        pca_solver: p.solver,
+        kl_divergence: None,
+        perplexity: None,
+        gradient: None,
+        embedding: e,
+    }
+}
+
+/// t-SNE after PCA to `opts.pca_dims` dims, started from the previous layer's map `prev` or,
+/// on the first layer, from the first two components.
+fn tsne_map(
+    x: &Array2<f32>,
+    layer: usize,
+    prev: Option<&ArrayView2<f32>>,
+    opts: &MapOptions,
+    seed: u64,
+    step: &Step,
+) -> LayerMap {
+    let n = x.nrows();
+    let p = pca::fit(&x.view(), opts.pca_dims, pca::PcaSolver::Auto, seed);
+    let reduced = p.transform(&x.view());
+    // Every layer runs the full schedule (early exaggeration, then the plain phase)
+    // from a start scaled to standard deviation 1e-4: the first layer's PCA, then
+    // the previous layer's finished map, so the panels keep one layout. Starting a
+    // later layer from the previous map at its own (expanded) scale was tried: on the
+    // demo it ended at a higher KL divergence (1.14 against 0.85 on layer 1) and cost
+    // more, since the FFT grid grows with the map's extent.
+    let init = match prev {
+        Some(pm) => tsne::rescale(pm, 1e-4),
+        None => {
+            let mut two = Array2::<f32>::zeros((n, 2));
+            for c in 0..reduced.ncols().min(2) {
+                two.column_mut(c).assign(&reduced.column(c));
+            }
+            tsne::rescale(&two.view(), 1e-4)
+        }
+    };
+    let r = tsne::run(&reduced.view(), &init.view(), &opts.tsne, || step.inc(1));
+    LayerMap {
+        layer,
+        explained_variance_ratio: p.explained_variance_ratio.clone(),
+        pca_solver: p.solver,
+        kl_divergence: Some(r.kl_divergence),
+        perplexity: Some(r.perplexity),
+        gradient: Some(r.gradient.to_string()),
+        embedding: r.embedding,
+    }
+}
+
+/// What every layer's purity metrics share: the sampled labels and the k values used.
+struct LayerMetrics<'a> {
+    labels: &'a [SampleLabels],
+    task_codes: Vec<&'a [u32]>,
+    knn_k: usize,
+    kmeans_k: usize,
+    kmeans_iterations: usize,
+    seed: u64,
+}
+
+impl LayerMetrics<'_> {
+    /// One purity record per label for a layer: metrics in the full space `x` and on its
+    /// map. Labels with single-frame classes are noted once (`singleton_noted`).
+    fn records(
+        &self,
+        x: &Array2<f32>,
+        map: &LayerMap,
+        singleton_noted: &mut [bool],
+        notes: &mut Vec<String>,
+    ) -> Vec<PurityRecord> {
+        let (n, k) = (x.nrows(), self.knn_k);
         let full = purity::Points::new(&x.view());
-        let map_pts = purity::Points::new(&emb.view());
+        let map_pts = purity::Points::new(&map.embedding.view());
         let low_nbrs = purity::knn_lists(&map_pts, k);
         let trust_ok = 2 * k < n;
         let (full_stats, trust) = purity::label_stats(
             &full,
-            &task_codes,
+            &self.task_codes,
             k,
             trust_ok.then_some(low_nbrs.as_slice()),
         );
-        let (map_stats, _) = purity::label_stats(&map_pts, &task_codes, k, None);
-        let clusters = purity::kmeans(&x.view(), kmeans_k, common.seed, opts.kmeans_iterations);
-        let explained = Some(ratios.iter().sum::<f64>());
-        for (t, lab) in labels.iter().enumerate() {
+        let (map_stats, _) = purity::label_stats(&map_pts, &self.task_codes, k, None);
+        let clusters = purity::kmeans(&x.view(), self.kmeans_k, self.seed, self.kmeans_iterations);
+        let explained = Some(map.explained_variance_ratio.iter().sum::<f64>());
+        let mut records = Vec::with_capacity(self.labels.len());
+        for (t, lab) in self.labels.iter().enumerate() {
             let fs = &full_stats[t];
             if !fs.silhouette.singletons.is_empty() && !singleton_noted[t] {
                 singleton_noted[t] = true;
@@ -307,7 +419,7 @@ pub fn run(
             }
             let cs = purity::cluster_scores(&lab.codes, &clusters);
             records.push(PurityRecord {
-                layer: layer_id,
+                layer: map.layer,
                 label: lab.name.clone(),
                 n_frames: lab.codes.iter().filter(|&&c| c != UNLABELLED).count(),
                 silhouette: fs.silhouette.score,
@@ -318,44 +430,28 @@ pub fn run(
                 label_purity: cs.map(|c| c.label_purity),
                 pnmi: cs.map(|c| c.pnmi),
                 variance_ratio: purity::variance_ratio(&x.view(), &lab.codes),
-                kl_divergence: kl,
+                kl_divergence: map.kl_divergence,
                 explained_variance: explained,
             });
         }
-        step.inc(1);
-        layers.push(LayerMap {
-            layer: layer_id,
-            explained_variance_ratio: ratios,
-            pca_solver: solver,
-            kl_divergence: kl,
-            perplexity: perp,
-            gradient: grad.map(str::to_string),
-            embedding: emb,
-        });
+        records
     }
-    drop(step);
-    let summary = summarise(&records);
-    let mut options = serde_json::to_value(opts).map_err(|e| Error::Internal(e.to_string()))?;
+}
+
+/// The options as recorded: the map settings, the seed and the values `used`.
+fn options_value(
+    opts: &MapOptions,
+    seed: u64,
+    used: &[(&str, usize)],
+) -> Result<serde_json::Value, MapError> {
+    let mut options = serde_json::to_value(opts).map_err(|e| MapError::Internal(e.to_string()))?;
     if let serde_json::Value::Object(m) = &mut options {
-        m.insert("seed".into(), common.seed.into());
-        m.insert("kmeans_k_used".into(), kmeans_k.into());
-        m.insert("knn_k_used".into(), k.into());
-        m.insert("per_cell_used".into(), sample.per_cell.into());
+        m.insert("seed".into(), seed.into());
+        for &(key, v) in used {
+            m.insert(key.into(), v.into());
+        }
     }
-    Ok(MapReport {
-        capture: CaptureRef {
-            name: cap.name.clone(),
-            path: cap.dir.display().to_string(),
-        },
-        frames: sample.frames.iter().map(|&f| f as u64).collect(),
-        layers,
-        labels,
-        records,
-        summary,
-        notes,
-        options,
-        colourings,
-    })
+    Ok(options)
 }
 
 /// Speaker half-fall layer and phone peak layer from k-NN purity in the full space.

@@ -66,24 +66,47 @@ struct Point {
     g: Vec<f64>,
 }
 
-/// Minimise `f` from `x0`. `f(x, grad)` returns the objective and writes the gradient.
-pub fn minimize<F>(mut f: F, x0: Vec<f64>, opts: &LbfgsOptions) -> LbfgsResult
-where
-    F: FnMut(&[f64], &mut [f64]) -> f64,
-{
-    let n = x0.len();
-    let mut x = x0;
-    let mut g = vec![0.0; n];
-    let mut fx = f(&x, &mut g);
-    let mut evals = 1usize;
-    let mut s_hist: Vec<Vec<f64>> = Vec::new();
-    let mut y_hist: Vec<Vec<f64>> = Vec::new();
-    let mut rho: Vec<f64> = Vec::new();
-    let mut converged = max_abs(&g) <= opts.gtol || !fx.is_finite();
-    let mut iter = 0usize;
-    while !converged && iter < opts.max_iter {
-        // Two-loop recursion: d = -H g.
-        let mut q = g.clone();
+/// The last `memory` curvature pairs, oldest first: steps s, gradient changes y and
+/// rho = 1 / (s · y).
+#[derive(Default)]
+struct History {
+    s: Vec<Vec<f64>>,
+    y: Vec<Vec<f64>>,
+    rho: Vec<f64>,
+}
+
+impl History {
+    fn is_empty(&self) -> bool {
+        self.s.is_empty()
+    }
+
+    fn clear(&mut self) {
+        self.s.clear();
+        self.y.clear();
+        self.rho.clear();
+    }
+
+    /// Keep the pair (s, y) if its curvature s · y is positive, dropping the oldest pair
+    /// when `memory` pairs are already kept.
+    fn push(&mut self, s: Vec<f64>, y: Vec<f64>, memory: usize) {
+        let sy = dot(&s, &y);
+        if sy > 1e-12 * dot(&y, &y) && sy > 0.0 {
+            if self.s.len() == memory {
+                self.s.remove(0);
+                self.y.remove(0);
+                self.rho.remove(0);
+            }
+            self.s.push(s);
+            self.y.push(y);
+            self.rho.push(1.0 / sy);
+        }
+    }
+
+    /// The search direction -H g by the two-loop recursion, H the inverse-Hessian estimate
+    /// of the kept pairs (scaled by s · y / y · y of the newest pair).
+    fn direction(&self, g: &[f64]) -> Vec<f64> {
+        let (s_hist, y_hist, rho) = (&self.s, &self.y, &self.rho);
+        let mut q = g.to_vec();
         let m = s_hist.len();
         let mut a = vec![0.0; m];
         for i in (0..m).rev() {
@@ -106,16 +129,33 @@ where
                 *qj += (a[i] - b) * sj;
             }
         }
-        let mut d: Vec<f64> = q.iter().map(|v| -v).collect();
+        q.iter().map(|v| -v).collect()
+    }
+}
+
+/// Minimise `f` from `x0`. `f(x, grad)` returns the objective and writes the gradient.
+pub fn minimize<F>(mut f: F, x0: Vec<f64>, opts: &LbfgsOptions) -> LbfgsResult
+where
+    F: FnMut(&[f64], &mut [f64]) -> f64,
+{
+    let n = x0.len();
+    let mut x = x0;
+    let mut g = vec![0.0; n];
+    let mut fx = f(&x, &mut g);
+    let mut evals = 1usize;
+    let mut hist = History::default();
+    let mut converged = max_abs(&g) <= opts.gtol || !fx.is_finite();
+    let mut iter = 0usize;
+    while !converged && iter < opts.max_iter {
+        let mut d = hist.direction(&g);
         let mut gd = dot(&g, &d);
         if gd.is_nan() || gd >= 0.0 {
-            s_hist.clear();
-            y_hist.clear();
-            rho.clear();
+            // Not a descent direction: restart from steepest descent with a fresh memory.
+            hist.clear();
             d = g.iter().map(|v| -v).collect();
             gd = dot(&g, &d);
         }
-        let t0 = if s_hist.is_empty() {
+        let t0 = if hist.is_empty() {
             (1.0 / dot(&g, &g).sqrt()).min(1.0)
         } else {
             1.0
@@ -132,29 +172,17 @@ where
             &mut evals,
         );
         let Some(p) = found else {
-            if s_hist.is_empty() {
+            if hist.is_empty() {
                 break;
             }
             // Retry once from steepest descent with a fresh memory.
-            s_hist.clear();
-            y_hist.clear();
-            rho.clear();
+            hist.clear();
             continue;
         };
         iter += 1;
         let s: Vec<f64> = p.x.iter().zip(&x).map(|(a, b)| a - b).collect();
         let y: Vec<f64> = p.g.iter().zip(&g).map(|(a, b)| a - b).collect();
-        let sy = dot(&s, &y);
-        if sy > 1e-12 * dot(&y, &y) && sy > 0.0 {
-            if s_hist.len() == opts.memory {
-                s_hist.remove(0);
-                y_hist.remove(0);
-                rho.remove(0);
-            }
-            s_hist.push(s);
-            y_hist.push(y);
-            rho.push(1.0 / sy);
-        }
+        hist.push(s, y, opts.memory);
         let rel = (fx - p.f) / fx.abs().max(p.f.abs()).max(1.0);
         x = p.x;
         g = p.g;

@@ -1,0 +1,386 @@
+//! Task planning for the probe stage: for each label task, the items (pooled frames), the
+//! classes a split can use (others dropped with a warning, or refused with `--strict`), the
+//! grouped folds with their training and test sides capped, and the set-up record that says
+//! what was done. Everything is checked here, before any layer is read.
+
+use std::collections::BTreeSet;
+
+use crate::analysis::seed::mix;
+use crate::capture::{Capture, FrameTable, LabelTask, UNLABELLED};
+use crate::records::probe::{FoldSides, TaskSetup};
+use crate::select::pool::{self, Items, UttIndex};
+use crate::select::sample;
+use crate::select::split::{self, Fold, Split, SplitKind, SplitOptions};
+
+use super::{ProbeError, ProbeOptions};
+
+/// A task ready to run: items, classes and folds (training sides already subsampled).
+pub(super) struct TaskPlan {
+    pub(super) name: String,
+    pub(super) speaker_task: bool,
+    pub(super) items: Items,
+    pub(super) classes: Vec<String>,
+    pub(super) kind: SplitKind,
+    pub(super) folds: Vec<Fold>,
+    pub(super) setup: TaskSetup,
+}
+
+fn input(msg: String) -> ProbeError {
+    ProbeError::Input(msg)
+}
+
+/// Plan every task of `opts.tasks` (default: the frame table's default tasks), in order.
+/// Warnings and notes go to `notes`.
+pub(super) fn plan_tasks(
+    cap: &Capture,
+    opts: &ProbeOptions,
+    seed: u64,
+    notes: &mut Vec<String>,
+) -> Result<Vec<TaskPlan>, ProbeError> {
+    let names = task_names(cap, opts)?;
+    let idx = UttIndex::new(&cap.frames);
+    if opts.context > 0 {
+        let shortest = idx.shortest();
+        if opts.context >= shortest {
+            notes.push(format!(
+                "--context {} reaches past the shortest utterance ({shortest} frames): edge frames are repeated to pad",
+                opts.context
+            ));
+        }
+    }
+    let mut plans = Vec::new();
+    for (ti, name) in names.iter().enumerate() {
+        plans.push(plan_task(cap, &idx, opts, ti, name, seed, notes)?);
+    }
+    Ok(plans)
+}
+
+/// The tasks to probe, each checked to be a label column of the capture.
+fn task_names(cap: &Capture, opts: &ProbeOptions) -> Result<Vec<String>, ProbeError> {
+    let t = &cap.frames;
+    let names: Vec<String> = if opts.tasks.is_empty() {
+        t.default_tasks()
+    } else {
+        opts.tasks.clone()
+    };
+    for n in &names {
+        if t.task(n).is_none() {
+            return Err(input(format!(
+                "{}: --task {n}: not a label column; the capture has: {}",
+                cap.dir.display(),
+                t.task_names().join(", ")
+            )));
+        }
+    }
+    Ok(names)
+}
+
+/// Plan task number `ti` (its seeds are derived from `seed` and `ti`).
+fn plan_task(
+    cap: &Capture,
+    idx: &UttIndex,
+    opts: &ProbeOptions,
+    ti: usize,
+    name: &str,
+    seed: u64,
+    notes: &mut Vec<String>,
+) -> Result<TaskPlan, ProbeError> {
+    let t = &cap.frames;
+    let task = t
+        .task(name)
+        .ok_or_else(|| input(format!("no task {name}")))?;
+    let speaker_task = name == "speaker";
+    let kind = checked_kind(cap, task, name, opts, speaker_task)?;
+    let items = pool::pool_items(t, idx, &task.codes, opts.pooling, name).map_err(input)?;
+    if kind == SplitKind::Speaker {
+        check_two_speakers(cap, name, &items)?;
+    }
+    let (keep_class, dropped) = drop_unsplittable(
+        t,
+        task,
+        name,
+        &items,
+        kind,
+        speaker_task,
+        opts.strict,
+        notes,
+    )?;
+    let (items, classes) = keep_usable_classes(cap, task, name, items, &keep_class)?;
+    let sopts = SplitOptions {
+        test_fraction: opts.test_fraction,
+        folds: opts.folds,
+    };
+    let sp = split::make_split(
+        kind,
+        speaker_task,
+        &items.utt,
+        &items.speaker,
+        &sopts,
+        mix(seed, 100 + ti as u64),
+    )
+    .map_err(|m| input(format!("{}: task '{name}': {m}", cap.dir.display())))?;
+    let folds = capped_folds(&sp, &items, opts, ti, seed);
+    note_test_cap(&sp, &folds, name, opts, notes);
+    let check = split::check_leakage(
+        sp.kind,
+        sp.every_speaker_both_sides,
+        &folds,
+        &items.utt,
+        &items.speaker,
+    );
+    if !check.passed {
+        return Err(ProbeError::Internal(format!(
+            "task '{name}': split leaks: {check:?}"
+        )));
+    }
+    let setup = TaskSetup {
+        task: name.to_string(),
+        classes: classes.clone(),
+        dropped,
+        split: sp.kind,
+        groups: group_word(sp.kind).to_string(),
+        folds: fold_sides(sp.kind, &folds, &items, t),
+        leakage_check: check,
+    };
+    Ok(TaskPlan {
+        name: name.to_string(),
+        speaker_task,
+        items,
+        classes,
+        kind: sp.kind,
+        folds,
+        setup,
+    })
+}
+
+/// The split kind for the task, refusing a task with no label and a speaker-disjoint split
+/// of the speaker task.
+fn checked_kind(
+    cap: &Capture,
+    task: &LabelTask,
+    name: &str,
+    opts: &ProbeOptions,
+    speaker_task: bool,
+) -> Result<SplitKind, ProbeError> {
+    if task.codes.iter().all(|&c| c == UNLABELLED) {
+        return Err(input(format!(
+            "{}: task '{name}': every frame is unlabelled",
+            cap.dir.display()
+        )));
+    }
+    let kind = opts.split.resolve(speaker_task);
+    if speaker_task && kind == SplitKind::Speaker {
+        return Err(input(
+            "--split speaker cannot be used for the speaker task: no test speaker would be in training; use --split auto or utterance".into(),
+        ));
+    }
+    Ok(kind)
+}
+
+/// A speaker-disjoint split needs labelled items from at least two speakers.
+fn check_two_speakers(cap: &Capture, name: &str, items: &Items) -> Result<(), ProbeError> {
+    let mut spk: Vec<u32> = items.speaker.clone();
+    spk.sort_unstable();
+    spk.dedup();
+    if spk.len() < 2 {
+        return Err(input(format!(
+            "{}: task '{name}': a speaker-disjoint split needs at least 2 speakers with labelled frames, found {}; use --split utterance to split within speakers",
+            cap.dir.display(),
+            spk.len()
+        )));
+    }
+    Ok(())
+}
+
+/// The groups (speakers or utterances, per `group`) in which each of `n_classes` classes
+/// occurs.
+fn groups_per_class(label: &[u32], group: &[u32], n_classes: usize) -> Vec<BTreeSet<u32>> {
+    let mut out: Vec<BTreeSet<u32>> = vec![Default::default(); n_classes];
+    for (&c, &g) in label.iter().zip(group) {
+        out[c as usize].insert(g);
+    }
+    out
+}
+
+/// Classes (or speakers) the split cannot place on both sides: a class found in one speaker
+/// only under a speaker-disjoint split, a speaker with one utterance for the speaker task.
+/// Returns a keep flag per class and the dropped classes in words; refuses with `strict`.
+#[allow(clippy::too_many_arguments)]
+fn drop_unsplittable(
+    t: &FrameTable,
+    task: &LabelTask,
+    name: &str,
+    items: &Items,
+    kind: SplitKind,
+    speaker_task: bool,
+    strict: bool,
+    notes: &mut Vec<String>,
+) -> Result<(Vec<bool>, Vec<String>), ProbeError> {
+    let n_cls = task.classes.len();
+    let mut keep_class = vec![true; n_cls];
+    let mut dropped = Vec::new();
+    let mut drop_class = |c: usize, msg: String, why: String| -> Result<(), ProbeError> {
+        if strict {
+            return Err(input(format!("{msg} (--strict)")));
+        }
+        notes.push(format!("warning: {msg}; dropped"));
+        dropped.push(format!("{} ({why})", task.classes[c]));
+        keep_class[c] = false;
+        Ok(())
+    };
+    if kind == SplitKind::Speaker {
+        for (c, set) in groups_per_class(&items.label, &items.speaker, n_cls)
+            .iter()
+            .enumerate()
+        {
+            if set.len() == 1 {
+                let spk = &t.speakers[*set.iter().next().unwrap_or(&0) as usize];
+                let msg = format!(
+                    "task '{name}': class '{}' occurs only in speaker '{spk}', so a speaker-disjoint split cannot test it",
+                    task.classes[c]
+                );
+                drop_class(c, msg, format!("only in speaker {spk}"))?;
+            }
+        }
+    }
+    if speaker_task && kind == SplitKind::Utterance {
+        for (c, set) in groups_per_class(&items.label, &items.utt, n_cls)
+            .iter()
+            .enumerate()
+        {
+            if set.len() == 1 {
+                let msg = format!(
+                    "task 'speaker': speaker '{}' has a single utterance, so it cannot be on both sides of the split",
+                    task.classes[c]
+                );
+                drop_class(c, msg, "single utterance".to_string())?;
+            }
+        }
+    }
+    Ok((keep_class, dropped))
+}
+
+/// Keep the items of kept classes that have items, renumbered `0..k`; refuse fewer than 2.
+fn keep_usable_classes(
+    cap: &Capture,
+    task: &LabelTask,
+    name: &str,
+    items: Items,
+    keep_class: &[bool],
+) -> Result<(Items, Vec<String>), ProbeError> {
+    let n_cls = task.classes.len();
+    let mut counts = vec![0usize; n_cls];
+    for &c in &items.label {
+        counts[c as usize] += 1;
+    }
+    let mut new_code = vec![u32::MAX; n_cls];
+    let mut classes = Vec::new();
+    for c in 0..n_cls {
+        if keep_class[c] && counts[c] > 0 {
+            new_code[c] = classes.len() as u32;
+            classes.push(task.classes[c].clone());
+        }
+    }
+    if classes.len() < 2 {
+        return Err(input(format!(
+            "{}: task '{name}' has {} usable class{} ({}); a probe needs at least 2",
+            cap.dir.display(),
+            classes.len(),
+            if classes.len() == 1 { "" } else { "es" },
+            if classes.is_empty() {
+                "none".to_string()
+            } else {
+                classes.join(", ")
+            }
+        )));
+    }
+    let keep: Vec<bool> = items
+        .label
+        .iter()
+        .map(|&c| new_code[c as usize] != u32::MAX)
+        .collect();
+    let mut items = items.retain(&keep);
+    for c in items.label.iter_mut() {
+        *c = new_code[*c as usize];
+    }
+    Ok((items, classes))
+}
+
+/// The folds of `sp` with each side capped (stratified by class) at `--max-train-frames` and
+/// `--max-test-frames`.
+fn capped_folds(sp: &Split, items: &Items, opts: &ProbeOptions, ti: usize, seed: u64) -> Vec<Fold> {
+    sp.folds
+        .iter()
+        .enumerate()
+        .map(|(fi, f)| Fold {
+            train: sample::by_class(
+                &f.train,
+                &items.label,
+                opts.max_train_frames,
+                mix(seed, 200 + (ti * 1000 + fi) as u64),
+            ),
+            test: sample::by_class(
+                &f.test,
+                &items.label,
+                opts.max_test_frames,
+                mix(seed, 250 + (ti * 1000 + fi) as u64),
+            ),
+        })
+        .collect()
+}
+
+/// Note when the test cap left test items out.
+fn note_test_cap(
+    sp: &Split,
+    folds: &[Fold],
+    name: &str,
+    opts: &ProbeOptions,
+    notes: &mut Vec<String>,
+) {
+    let full_test: usize = sp.folds.iter().map(|f| f.test.len()).sum();
+    let kept_test: usize = folds.iter().map(|f| f.test.len()).sum();
+    if kept_test < full_test {
+        notes.push(format!(
+            "{name}: test items capped by --max-test-frames {}: {kept_test} of {full_test} \
+             (stratified by class)",
+            opts.max_test_frames
+        ));
+    }
+}
+
+/// What a split of this kind keeps apart, in words.
+fn group_word(kind: SplitKind) -> &'static str {
+    match kind {
+        SplitKind::Speaker => "speakers",
+        SplitKind::Utterance => "utterances",
+        _ => "items",
+    }
+}
+
+/// Each fold's sides by name (speakers or utterances; none for other kinds) and size.
+fn fold_sides(kind: SplitKind, folds: &[Fold], items: &Items, t: &FrameTable) -> Vec<FoldSides> {
+    let names_of = |ix: &[usize]| -> Vec<String> {
+        let mut ids: Vec<u32> = match kind {
+            SplitKind::Speaker => ix.iter().map(|&i| items.speaker[i]).collect(),
+            SplitKind::Utterance => ix.iter().map(|&i| items.utt[i]).collect(),
+            _ => vec![],
+        };
+        ids.sort_unstable();
+        ids.dedup();
+        ids.iter()
+            .map(|&g| match kind {
+                SplitKind::Speaker => t.speakers[g as usize].clone(),
+                _ => t.utterances[g as usize].clone(),
+            })
+            .collect()
+    };
+    folds
+        .iter()
+        .map(|f| FoldSides {
+            train: names_of(&f.train),
+            test: names_of(&f.test),
+            n_train: f.train.len(),
+            n_test: f.test.len(),
+        })
+        .collect()
+}
