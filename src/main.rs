@@ -5,6 +5,7 @@ use std::path::PathBuf;
 use std::process::ExitCode;
 
 use clap::{Args, Parser, Subcommand};
+use voxstrata::analysis::abx::AbxOptions;
 use voxstrata::analysis::compare::{CompareOptions, Estimator, Kernel, MatchBy};
 use voxstrata::analysis::map::MapOptions;
 use voxstrata::analysis::probe::ProbeOptions;
@@ -197,6 +198,25 @@ enum Command {
         #[command(flatten)]
         args: CompareArgs,
     },
+    /// Phone ABX error per layer, within and across speaker.
+    Abx {
+        /// Capture folder.
+        capture: PathBuf,
+        /// Label column whose runs are the items.
+        #[arg(long, default_value = "phone")]
+        label: String,
+        /// Most items per (label, context, speaker) cell, drawn with the seed (0: all).
+        #[arg(long = "max-items", default_value_t = 5)]
+        max_items: usize,
+        /// Output folder.
+        #[arg(long, default_value = "voxstrata-abx")]
+        out: PathBuf,
+        /// Write into an output folder that already holds files.
+        #[arg(long)]
+        force: bool,
+        #[command(flatten)]
+        cap: CaptureArgs,
+    },
     /// Run everything and write one HTML report.
     Report {
         /// One or two captures (none: the shipped demo).
@@ -210,6 +230,9 @@ enum Command {
         /// Layer map method (pca is much faster on big captures).
         #[arg(long = "map-method", value_enum, default_value = "tsne")]
         map_method: MapMethod,
+        /// Skip the ABX analysis.
+        #[arg(long = "no-abx")]
+        no_abx: bool,
         #[command(flatten)]
         cap: CaptureArgs,
     },
@@ -317,14 +340,18 @@ fn run(cli: Cli) -> Result<(), Error> {
             .build_global()
             .map_err(|e| Error::Internal(e.to_string()))?;
     }
+    let (c, p) = (&common, &progress);
     match cli.command {
         Command::Inspect { capture, json, cap } => {
-            let args = commands::inspect::InspectArgs {
-                capture,
-                open: open_options(&cap)?,
-                json,
-            };
-            commands::inspect::run(&args, &progress)
+            let open = open_options(&cap)?;
+            commands::inspect::run(
+                &commands::inspect::InspectArgs {
+                    capture,
+                    open,
+                    json,
+                },
+                p,
+            )
         }
         Command::Probe {
             capture,
@@ -338,7 +365,7 @@ fn run(cli: Cli) -> Result<(), Error> {
                 out: probe.out,
                 force: probe.force,
             };
-            commands::probe::run(&args, &common, &progress)
+            commands::probe::run(&args, c, p)
         }
         Command::Map {
             capture,
@@ -349,19 +376,21 @@ fn run(cli: Cli) -> Result<(), Error> {
             force,
             cap,
         } => {
+            let map = MapOptions {
+                method: map_method(method),
+                per_label,
+                color_by,
+                ..Default::default()
+            };
+            let open = open_options(&cap)?;
             let args = commands::map::MapArgs {
                 capture,
-                open: open_options(&cap)?,
-                map: MapOptions {
-                    method: map_method(method),
-                    per_label,
-                    color_by,
-                    ..Default::default()
-                },
+                open,
+                map,
                 out,
                 force,
             };
-            commands::map::run(&args, &common, &progress)
+            commands::map::run(&args, c, p)
         }
         Command::Compare {
             capture_a,
@@ -377,13 +406,33 @@ fn run(cli: Cli) -> Result<(), Error> {
                 out: args.out,
                 force: args.force,
             };
-            commands::compare::run(&run_args, &common, &progress)
+            commands::compare::run(&run_args, c, p)
+        }
+        Command::Abx {
+            capture,
+            label,
+            max_items,
+            out,
+            force,
+            cap,
+        } => {
+            let abx = AbxOptions { label, max_items };
+            let open = open_options(&cap)?;
+            let args = commands::abx::AbxArgs {
+                capture,
+                open,
+                abx,
+                out,
+                force,
+            };
+            commands::abx::run(&args, c, p)
         }
         Command::Report {
             captures,
             out,
             force,
             map_method: method,
+            no_abx,
             cap,
         } => {
             let opts = commands::report::ReportOptions {
@@ -395,31 +444,45 @@ fn run(cli: Cli) -> Result<(), Error> {
                     method: map_method(method),
                     ..Default::default()
                 },
+                abx: (!no_abx).then(AbxOptions::default),
                 ..Default::default()
             };
-            let rec = commands::report::run(&opts, &common, &progress)?;
-            if !cli.quiet {
-                let total = rec.timings.last().map(|t| t.seconds).unwrap_or(0.0);
-                eprintln!(
-                    "voxstrata: report written to {} ({total:.1} s)",
-                    opts.out.join("index.html").display()
-                );
-            }
-            Ok(())
+            report(&opts, c, p, cli.quiet)
         }
         Command::Demo { out, force, size } => {
-            let args = commands::demo::DemoArgs {
-                out,
-                force,
-                seed: common.seed,
-                size: match size {
-                    DemoSizeArg::Default => voxstrata::demo::DemoSize::Default,
-                    DemoSizeArg::Small => voxstrata::demo::DemoSize::Small,
-                },
+            let size = match size {
+                DemoSizeArg::Default => voxstrata::demo::DemoSize::Default,
+                DemoSizeArg::Small => voxstrata::demo::DemoSize::Small,
             };
-            commands::demo::run(&args, &progress)
+            let seed = c.seed;
+            commands::demo::run(
+                &commands::demo::DemoArgs {
+                    out,
+                    force,
+                    seed,
+                    size,
+                },
+                p,
+            )
         }
     }
+}
+
+fn report(
+    opts: &commands::report::ReportOptions,
+    common: &CommonOptions,
+    progress: &Progress,
+    quiet: bool,
+) -> Result<(), Error> {
+    let rec = commands::report::run(opts, common, progress)?;
+    if !quiet {
+        let total = rec.timings.last().map(|t| t.seconds).unwrap_or(0.0);
+        eprintln!(
+            "voxstrata: report written to {} ({total:.1} s)",
+            opts.out.join("index.html").display()
+        );
+    }
+    Ok(())
 }
 
 fn main() -> ExitCode {

@@ -35,6 +35,10 @@ pub struct PurityRecord {
     pub kl_divergence: Option<f64>,
     /// Variance share of the PCA components used (2 for a PCA map, 50 before t-SNE).
     pub explained_variance: Option<f64>,
+    /// For labels other than `phone`: the share of the layer's total sum of squares that lies
+    /// between this label's values inside each phone, Σ_p Σ_v n_pv ‖mean_pv − mean_p‖² /
+    /// Σ ‖x − mean‖² (None for `phone` itself, or without a phone column).
+    pub within_phone_share: Option<f64>,
 }
 
 /// One layer's map.

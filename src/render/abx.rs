@@ -2,6 +2,7 @@
 //! capture, and below it the gap across − within (how much a change of talker still costs).
 
 use plotters::coord::Shift;
+use plotters::element::DashedPathElement;
 use plotters::prelude::*;
 
 use crate::records::abx::AbxRecord;
@@ -91,7 +92,8 @@ impl super::Figure for AbxCurves {
             .iter()
             .flat_map(|s| s.within.iter().chain(&s.across).map(|p| p.1))
             .fold(0.0f64, f64::max);
-        let ymax = (ymax * 1.15).clamp(0.05, 0.6);
+        // Head room above the curves for the legend.
+        let ymax = (ymax * 1.6).clamp(0.05, 0.75);
         let mut chart = ChartBuilder::on(&top)
             .caption(
                 format!(
@@ -131,12 +133,18 @@ impl super::Figure for AbxCurves {
                 } else {
                     chart.draw_series(LineSeries::new(line.clone(), style))
                 };
-                series
+                let anno = series
                     .map_err(e2s)?
-                    .label(format!("{}: {what} speaker", s.name))
-                    .legend(move |(x, y)| {
+                    .label(format!("{}: {what} speaker", s.name));
+                if dashed {
+                    anno.legend(move |(x, y)| {
+                        DashedPathElement::new(vec![(x, y), (x + 22, y)], 5, 3, c.stroke_width(2))
+                    });
+                } else {
+                    anno.legend(move |(x, y)| {
                         PathElement::new(vec![(x, y), (x + 22, y)], c.stroke_width(3))
                     });
+                }
                 chart
                     .draw_series(line.iter().map(|&p| Circle::new(p, 3, c.filled())))
                     .map_err(e2s)?;

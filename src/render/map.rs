@@ -213,20 +213,21 @@ impl<'a> PurityCurves<'a> {
 
 type Getter = fn(&PurityRecord) -> Option<f64>;
 
-const METRICS: [(&str, Getter); 8] = [
+const METRICS: [(&str, Getter); 9] = [
     ("k-NN purity (full space)", |r| r.knn_purity),
     ("k-NN purity (2-D map)", |r| r.knn_purity_2d),
     ("silhouette", |r| r.silhouette),
     ("between-class variance share", |r| r.variance_ratio),
+    ("variance share inside phones", |r| r.within_phone_share),
+    ("trustworthiness of the map", |r| r.trustworthiness),
     ("label purity (k-means)", |r| r.label_purity),
     ("cluster purity (k-means)", |r| r.cluster_purity),
     ("PNMI (k-means)", |r| r.pnmi),
-    ("trustworthiness of the map", |r| r.trustworthiness),
 ];
 
 impl Figure for PurityCurves<'_> {
     fn size(&self) -> (u32, u32) {
-        (1200, 660)
+        (1200, 900)
     }
 
     fn draw<DB: DrawingBackend>(&self, area: &DrawingArea<DB, Shift>) -> Result<(), String> {
@@ -257,7 +258,7 @@ impl Figure for PurityCurves<'_> {
             *layers.first().unwrap_or(&0) as f64,
             (*layers.last().unwrap_or(&0) as f64).max(*layers.first().unwrap_or(&0) as f64 + 1.0),
         );
-        for (cell, (title, get)) in body.split_evenly((2, 4)).iter().zip(METRICS.iter()) {
+        for (cell, (title, get)) in body.split_evenly((3, 3)).iter().zip(METRICS.iter()) {
             let vals: Vec<f64> = self.report.records.iter().filter_map(get).collect();
             let lo = vals.iter().cloned().fold(0.0, f64::min);
             let hi = vals.iter().cloned().fold(1.0, f64::max);

@@ -31,6 +31,10 @@ use crate::capture::{Capture, CaptureError};
 pub use crate::records::abx::AbxRecord;
 pub use items::{AbxItems, Item, EDGE};
 
+/// Below this many triplets in a condition the records get a note (common practice: a
+/// rate from fewer than about a hundred comparisons is too coarse to compare layers).
+pub const FEW_TRIPLETS: u64 = 100;
+
 /// Options of the ABX analysis.
 #[derive(Clone, Debug, PartialEq, Eq, serde::Serialize, serde::Deserialize)]
 pub struct AbxOptions {
@@ -361,6 +365,18 @@ pub fn run(
             ));
         }
         records.extend(out.records);
+    }
+    for cond in ["within", "across"] {
+        let fewest = records
+            .iter()
+            .filter(|r| r.condition == cond)
+            .map(|r| r.n_triplets)
+            .min();
+        if let Some(n) = fewest.filter(|&n| n < FEW_TRIPLETS) {
+            notes.push(format!(
+                "{cond}-speaker error rests on as few as {n} triplets per layer: a few triplets more or less move it by a lot (items in the same context from one talker are rare here)"
+            ));
+        }
     }
     Ok(AbxResult {
         records,

@@ -399,6 +399,7 @@ impl LayerMetrics<'_> {
         let (map_stats, _) = purity::label_stats(&map_pts, &self.task_codes, k, None);
         let clusters = purity::kmeans(&x.view(), self.kmeans_k, self.seed, self.kmeans_iterations);
         let explained = Some(map.explained_variance_ratio.iter().sum::<f64>());
+        let phone = self.labels.iter().find(|l| l.name == "phone");
         let mut records = Vec::with_capacity(self.labels.len());
         for (t, lab) in self.labels.iter().enumerate() {
             let fs = &full_stats[t];
@@ -432,6 +433,9 @@ impl LayerMetrics<'_> {
                 variance_ratio: purity::variance_ratio(&x.view(), &lab.codes),
                 kl_divergence: map.kl_divergence,
                 explained_variance: explained,
+                within_phone_share: phone.filter(|p| p.name != lab.name).and_then(|p| {
+                    crate::analysis::variance::within_phone_share(x.view(), &p.codes, &lab.codes)
+                }),
             });
         }
         records

@@ -14,8 +14,10 @@ use std::time::Instant;
 pub use sources::{demo_candidates, demo_captures, frame_info, hash_files, input_files};
 
 use super::Written;
+use crate::analysis::abx::{AbxError, AbxOptions};
 use crate::analysis::{compare::CompareOptions, map::MapOptions, probe::ProbeOptions};
 use crate::capture::{Capture, OpenOptions};
+use crate::records::abx::AbxRecord;
 use crate::records::map::MapReport;
 use crate::records::run::{FileHash, RunRecord, StepTime};
 use crate::records::CaptureRef;
@@ -83,7 +85,7 @@ impl ReportError {
 }
 
 /// Options of `voxstrata report`.
-#[derive(Clone, Debug, Default)]
+#[derive(Clone, Debug)]
 pub struct ReportOptions {
     /// One or two capture folders (none: the shipped demo).
     pub captures: Vec<PathBuf>,
@@ -99,6 +101,23 @@ pub struct ReportOptions {
     pub map: MapOptions,
     /// Comparison settings (two captures).
     pub compare: CompareOptions,
+    /// ABX settings (None: no ABX).
+    pub abx: Option<AbxOptions>,
+}
+
+impl Default for ReportOptions {
+    fn default() -> Self {
+        ReportOptions {
+            captures: vec![],
+            out: PathBuf::new(),
+            force: false,
+            open: OpenOptions::default(),
+            probe: ProbeOptions::default(),
+            map: MapOptions::default(),
+            compare: CompareOptions::default(),
+            abx: Some(AbxOptions::default()),
+        }
+    }
 }
 
 impl ReportOptions {
@@ -107,6 +126,9 @@ impl ReportOptions {
         self.probe.check()?;
         self.map.check()?;
         self.compare.check()?;
+        if let Some(a) = &self.abx {
+            a.check()?;
+        }
         if self.captures.len() > 2 {
             return Err(ReportError::TooManyCaptures {
                 found: self.captures.len(),
@@ -213,6 +235,19 @@ pub fn run(
     }
     if let Some(o) = compare_options {
         method_options.push(("compare".to_string(), o));
+    }
+    if let Some(a) = &opts.abx {
+        method_options.push(("abx".to_string(), write::json::to_value(a)?));
+    }
+    if let Some(both) = abx_both(&sections, opts.abx.as_ref(), &opts.out)? {
+        // Two captures: one figure with both on the page, instead of one figure each.
+        figures.retain(|f| f.section != FigureSection::Abx);
+        outputs.extend(both.files);
+        figures.extend(
+            both.figures
+                .into_iter()
+                .map(|d| embed(d, FigureSection::Abx, "")),
+        );
     }
     outputs.extend(compare_written.files);
     // The page shows the CKA values in its table and the heatmap as drawn for compare_cka.
@@ -345,10 +380,12 @@ fn analyse_capture(
     let map_written = super::map::write(&map, dir)?;
     clock.done(&format!("map {}", c.name), t);
 
+    let (abx, abx_written, abx_notes) = abx_capture(c, dir, opts, common, progress, clock)?;
     let mut figures = Vec::new();
     for (w, section) in [
         (probe_written, FigureSection::Probe),
         (map_written, FigureSection::Maps),
+        (abx_written, FigureSection::Abx),
     ] {
         written.extend(w.files);
         figures.extend(w.figures.into_iter().map(|d| embed(d, section, prefix)));
@@ -358,6 +395,7 @@ fn analyse_capture(
         .iter()
         .map(|n| format!("probe: {n}"))
         .chain(map.notes.iter().map(|n| format!("map: {n}")))
+        .chain(abx_notes.iter().map(|n| format!("abx: {n}")))
         .collect();
     let options = vec![
         (format!("probe {}", c.name), probe.options.clone()),
@@ -369,12 +407,74 @@ fn analyse_capture(
             probe: probe.records,
             purity: map.records.clone(),
             maps: Some(map_set(c, &map)?),
+            abx,
             notes,
         },
         options,
         figures,
         written,
     })
+}
+
+/// ABX of one capture when asked for: its records, what was written, and notes. A capture
+/// where no cell holds a triplet gets a note instead of stopping the report.
+fn abx_capture(
+    c: &Capture,
+    dir: &Path,
+    opts: &ReportOptions,
+    common: &CommonOptions,
+    progress: &Progress,
+    clock: &mut Clock,
+) -> crate::Result<(Vec<AbxRecord>, Written, Vec<String>)> {
+    let Some(a) = &opts.abx else {
+        return Ok((vec![], Written::default(), vec![]));
+    };
+    let t = Instant::now();
+    let result = match super::abx::analyse(c, a, common, progress) {
+        Ok(r) => r,
+        Err(crate::Error::Abx(
+            e @ (AbxError::NoTriplet { .. } | AbxError::UnknownLabel { .. }),
+        )) => {
+            return Ok((
+                vec![],
+                Written::default(),
+                vec![format!("not computed: {e}")],
+            ));
+        }
+        Err(e) => return Err(e),
+    };
+    let written = super::abx::write(&super::abx::cap_ref(c), a, common.seed, &result, dir)?;
+    clock.done(&format!("abx {}", c.name), t);
+    Ok((result.records, written, result.notes))
+}
+
+/// With two captures that both have ABX records: one figure of both, as `abx.png`/`.svg` in
+/// the report folder.
+fn abx_both(
+    sections: &[CaptureSection],
+    abx: Option<&AbxOptions>,
+    out: &Path,
+) -> crate::Result<Option<Written>> {
+    let (Some(a), [x, y]) = (abx, sections) else {
+        return Ok(None);
+    };
+    if x.abx.is_empty() || y.abx.is_empty() {
+        return Ok(None);
+    }
+    let fig = crate::render::abx::AbxCurves {
+        label: a.label.clone(),
+        series: sections
+            .iter()
+            .map(|s| crate::render::abx::AbxSeries::new(&s.summary.name, &s.abx))
+            .collect(),
+    };
+    let title = format!(
+        "{} ABX error within and across speaker, both captures",
+        a.label
+    );
+    let mut w = Written::default();
+    w.figure(out, crate::render::draw(&fig, "abx", &title)?)?;
+    Ok(Some(w))
 }
 
 /// The maps of a run with what the explorer shows of each sampled frame.

@@ -5,6 +5,7 @@
 
 use ndarray::Array2;
 
+use crate::records::abx::AbxRecord;
 use crate::records::compare::{CkaRecord, ProbeDelta};
 use crate::records::inspect::Summary;
 use crate::records::map::PurityRecord;
@@ -74,6 +75,8 @@ pub struct CaptureSection {
     pub purity: Vec<PurityRecord>,
     /// Layer maps (None when the map did not run).
     pub maps: Option<MapSet>,
+    /// ABX records (empty when ABX did not run).
+    pub abx: Vec<AbxRecord>,
     /// Notes of every analysis of this capture, each prefixed with its stage.
     pub notes: Vec<String>,
 }
@@ -103,6 +106,8 @@ pub enum FigureSection {
     Probe,
     /// Layer maps.
     Maps,
+    /// ABX discriminability.
+    Abx,
     /// Comparison of two captures.
     Compare,
 }

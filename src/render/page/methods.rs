@@ -173,6 +173,18 @@ pub(super) fn methods_html(out: &mut String, inp: &ReportInputs) {
             o["test_fraction"].as_f64().map(|f| format!("{:.0}%", f * 100.0)).unwrap_or("?".into()),
         );
     }
+    if let Some((_, o)) = m.options.iter().find(|(k, _)| k == "abx") {
+        let label = o["label"].as_str().unwrap_or("phone");
+        let cap = match o["max_items"].as_u64() {
+            Some(0) => "all items".to_string(),
+            Some(n) => format!("at most {n} items per (label, context, speaker) cell, drawn with the seed and the same for every layer"),
+            None => "?".to_string(),
+        };
+        let _ = write!(
+            p,
+            "ABX discriminability (the task of Schatz et al. 2013) was measured on {label} items, each a maximal run of frames with one {label} label inside an utterance, in the context of the labels of the items before and after it (# at utterance edges). Frames are compared by angular distance (arccos of the cosine similarity, over π; a zero vector is at 1/2 from everything) and items by dynamic time warping with steps (1,1), (1,0), (0,1), the path cost divided by the number of cells on the path. For each ordered label pair (a, b), context and speaker, every triplet with A and X (X ≠ A) of label a and B of label b scores 1 when X is nearer to A, 1/2 on a tie; scores are averaged over the triplets of a cell, then over contexts, speakers (ordered speaker pairs across speaker, with X from the second talker) and label pairs, and the error rate is 1 minus that score; {cap}. "
+        );
+    }
     let _ = write!(p, "Every random choice was seeded with {}; the same seed and inputs give the same numbers whatever the thread count.", m.seed);
     let _ = write!(out, "<p>{}</p>", esc(&p));
     if !m.options.is_empty() {

@@ -121,6 +121,50 @@ fn pvalue(x: impl Maybe) -> String {
     }
 }
 
+/// The ABX section: the figure, what the numbers mean, and the records of each capture.
+fn abx_html(out: &mut String, inp: &ReportInputs) {
+    let figs: Vec<&SvgFigure> = inp
+        .figures
+        .iter()
+        .filter(|f| f.section == FigureSection::Abx)
+        .collect();
+    if figs.is_empty() && inp.captures.iter().all(|c| c.abx.is_empty()) {
+        return;
+    }
+    out.push_str("<section id=\"abx\"><h2>ABX discriminability</h2><p>The share of (A, B, X) triplets where X, a token of A's phone in the same phonetic context, is nearer to B than to A (ties count a half): lower is better, 0.5 is chance. Within speaker, all three come from one talker; across speaker, X comes from another talker. The gap across − within is what a change of talker still costs at that layer. The definition is in the methods below.</p>");
+    for f in figs {
+        figure_img(out, f);
+    }
+    for c in inp.captures.iter().filter(|c| !c.abx.is_empty()) {
+        let rows: Vec<Vec<String>> = c
+            .abx
+            .iter()
+            .map(|r| {
+                vec![
+                    r.layer.to_string(),
+                    r.condition.clone(),
+                    f3(r.error_rate),
+                    r.n_pairs.to_string(),
+                    r.n_triplets.to_string(),
+                ]
+            })
+            .collect();
+        table(
+            out,
+            &format!("ABX error rate of {} per layer", c.summary.name),
+            &[
+                "layer",
+                "condition",
+                "error rate",
+                "label pairs",
+                "triplets",
+            ],
+            &rows,
+        );
+    }
+    out.push_str("</section>");
+}
+
 /// The notes every analysis left for the reader (dropped classes, caps, skipped tasks).
 fn notes_html(out: &mut String, inp: &ReportInputs) {
     let mut groups: Vec<(String, &[String])> = inp
@@ -239,6 +283,7 @@ pub fn render(inp: &ReportInputs) -> String {
         figure_img(&mut o, f);
     }
     o.push_str("</section>");
+    abx_html(&mut o, inp);
 
     if let Some(c) = &inp.compare {
         let _ = write!(
@@ -363,6 +408,7 @@ mod page_tests {
             probe: vec![],
             purity: vec![],
             maps: None,
+            abx: vec![],
             notes: vec![format!("probe: a note about {name}")],
         }
     }

@@ -140,6 +140,7 @@ pub(super) fn purity_rows(recs: &[PurityRecord]) -> Vec<Vec<String>> {
                 f3(r.label_purity),
                 f3(r.pnmi),
                 f3(r.variance_ratio),
+                f3(r.within_phone_share),
             ]
         })
         .collect()
@@ -162,7 +163,7 @@ pub(super) const PROBE_HEAD: [&str; 15] = [
     "selectivity",
     "C",
 ];
-pub(super) const PURITY_HEAD: [&str; 10] = [
+pub(super) const PURITY_HEAD: [&str; 11] = [
     "layer",
     "label",
     "silhouette",
@@ -173,4 +174,5 @@ pub(super) const PURITY_HEAD: [&str; 10] = [
     "label purity",
     "PNMI",
     "variance ratio",
+    "share inside phones",
 ];
