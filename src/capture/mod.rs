@@ -552,13 +552,16 @@ fn find_layers(dir: &Path, config: &CaptureConfig) -> Result<Vec<LayerSource>, C
     per_file_layers(entries)
 }
 
+/// Files that match the layer pattern, with their layer numbers.
+type NumberedFiles = Vec<(usize, PathBuf)>;
+
 /// The files of `dir` that match the layer pattern (with their layer numbers), and every
 /// `.npy` file in it.
 fn list_layer_files(
     dir: &Path,
     config: &CaptureConfig,
-) -> Result<(Vec<(usize, PathBuf)>, Vec<PathBuf>), CaptureError> {
-    let mut entries: Vec<(usize, PathBuf)> = Vec::new();
+) -> Result<(NumberedFiles, Vec<PathBuf>), CaptureError> {
+    let mut entries: NumberedFiles = Vec::new();
     let mut npys: Vec<PathBuf> = Vec::new();
     let rd = std::fs::read_dir(dir).map_err(|e| CaptureError::io(dir, e))?;
     for e in rd {
@@ -615,7 +618,7 @@ fn stack_layers(p: &Path) -> Result<Vec<LayerSource>, CaptureError> {
 
 /// The layers of a capture with one 2-D `.npy` file per layer, ordered by layer number (each
 /// number once).
-fn per_file_layers(mut entries: Vec<(usize, PathBuf)>) -> Result<Vec<LayerSource>, CaptureError> {
+fn per_file_layers(mut entries: NumberedFiles) -> Result<Vec<LayerSource>, CaptureError> {
     entries.sort();
     for w in entries.windows(2) {
         if w[0].0 == w[1].0 {
