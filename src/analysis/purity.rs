@@ -191,99 +191,29 @@ pub fn label_stats(
         .iter()
         .map(|c| c.iter().filter(|&&v| v >= 2).count())
         .collect();
-    // Per row: for each task (silhouette value if used, same-label share if labelled), and the
-    // trustworthiness penalty.
-    type Row = (Vec<(Option<f64>, Option<f64>)>, f64);
-    let rows: Vec<Row> = p.map_rows(|i, d| {
+    let rows: Vec<RowStats> = p.map_rows(|i, d| {
         let per_task = tasks
             .iter()
             .zip(&counts)
             .zip(&n_valid)
             .map(|((lab, cnt), &nv)| {
-                let li = lab[i];
-                if li == UNLABELLED {
+                if lab[i] == UNLABELLED {
                     return (None, None);
                 }
-                let sil = if cnt[li as usize] >= 2 && nv >= 2 {
-                    let mut sums = vec![0f64; cnt.len()];
-                    for (j, &dj) in d.iter().enumerate() {
-                        let lj = lab[j];
-                        if lj != UNLABELLED {
-                            sums[lj as usize] += dj;
-                        }
-                    }
-                    let a = sums[li as usize] / (cnt[li as usize] - 1) as f64;
-                    let b = sums
-                        .iter()
-                        .zip(cnt)
-                        .enumerate()
-                        .filter(|&(c, (_, &m))| c != li as usize && m >= 2)
-                        .map(|(_, (s, &m))| s / m as f64)
-                        .fold(f64::INFINITY, f64::min);
-                    let m = a.max(b);
-                    Some(if m > 0.0 { (b - a) / m } else { 0.0 })
-                } else {
-                    None
-                };
-                let nb = nearest(i, d, k, |j| lab[j] != UNLABELLED);
-                let knn = if nb.is_empty() {
-                    None
-                } else {
-                    Some(
-                        nb.iter().filter(|&&j| lab[j as usize] == li).count() as f64
-                            / nb.len() as f64,
-                    )
-                };
-                (sil, knn)
+                (
+                    row_silhouette(i, d, lab, cnt, nv),
+                    row_knn_share(i, d, lab, k),
+                )
             })
             .collect();
-        let mut pen = 0f64;
-        if let Some(low) = low_nbrs {
-            let kk = low[i].len();
-            for &j in &low[i] {
-                let j = j as usize;
-                let dj = d[j];
-                // rank of j among i's neighbours in the full space (1 = nearest), ties by index;
-                // counted without branches (d[i] = 0 is taken out afterwards) so it vectorises
-                let less: usize = d.iter().map(|&dl| (dl < dj) as usize).sum();
-                let ties: usize = d[..j].iter().map(|&dl| (dl == dj) as usize).sum();
-                let self_counted = (0.0 < dj || (dj == 0.0 && i < j)) as usize;
-                let rank = 1 + less + ties - self_counted;
-                if rank > kk {
-                    pen += (rank - kk) as f64;
-                }
-            }
-        }
+        let pen = low_nbrs.map_or(0.0, |low| trust_penalty(i, d, &low[i]));
         (per_task, pen)
     });
-    let mut out = Vec::with_capacity(tasks.len());
-    for (t, cnt) in counts.iter().enumerate() {
-        let (mut ss, mut ns, mut sk, mut nk) = (0f64, 0usize, 0f64, 0usize);
-        for r in &rows {
-            if let Some(v) = r.0[t].0 {
-                ss += v;
-                ns += 1;
-            }
-            if let Some(v) = r.0[t].1 {
-                sk += v;
-                nk += 1;
-            }
-        }
-        let singletons = cnt
-            .iter()
-            .enumerate()
-            .filter(|&(_, &c)| c == 1)
-            .map(|(c, _)| c as u32)
-            .collect();
-        out.push(LabelStats {
-            silhouette: Silhouette {
-                score: (ns > 0).then(|| ss / ns as f64),
-                n_used: ns,
-                singletons,
-            },
-            knn_purity: (nk > 0).then(|| sk / nk as f64),
-        });
-    }
+    let out = counts
+        .iter()
+        .enumerate()
+        .map(|(t, cnt)| task_stats(&rows, t, cnt))
+        .collect();
     let trust = low_nbrs.and_then(|low| {
         let kk = low.first().map(|v| v.len()).unwrap_or(0) as f64;
         let nf = n as f64;
@@ -291,6 +221,98 @@ pub fn label_stats(
         (denom > 0.0).then(|| 1.0 - rows.iter().map(|r| r.1).sum::<f64>() * 2.0 / denom)
     });
     (out, trust)
+}
+
+/// Per row: for each task (silhouette value if used, same-label share if labelled), and the
+/// trustworthiness penalty.
+type RowStats = (Vec<(Option<f64>, Option<f64>)>, f64);
+
+/// Silhouette value of labelled row `i` (distances `d` to every row), when its class and at
+/// least one other have two or more members (`nv` such classes).
+fn row_silhouette(i: usize, d: &[f64], lab: &[u32], cnt: &[usize], nv: usize) -> Option<f64> {
+    let li = lab[i];
+    if !(cnt[li as usize] >= 2 && nv >= 2) {
+        return None;
+    }
+    let mut sums = vec![0f64; cnt.len()];
+    for (j, &dj) in d.iter().enumerate() {
+        let lj = lab[j];
+        if lj != UNLABELLED {
+            sums[lj as usize] += dj;
+        }
+    }
+    let a = sums[li as usize] / (cnt[li as usize] - 1) as f64;
+    let b = sums
+        .iter()
+        .zip(cnt)
+        .enumerate()
+        .filter(|&(c, (_, &m))| c != li as usize && m >= 2)
+        .map(|(_, (s, &m))| s / m as f64)
+        .fold(f64::INFINITY, f64::min);
+    let m = a.max(b);
+    Some(if m > 0.0 { (b - a) / m } else { 0.0 })
+}
+
+/// Share of row `i`'s `k` nearest labelled rows that carry its label (None without any).
+fn row_knn_share(i: usize, d: &[f64], lab: &[u32], k: usize) -> Option<f64> {
+    let li = lab[i];
+    let nb = nearest(i, d, k, |j| lab[j] != UNLABELLED);
+    if nb.is_empty() {
+        None
+    } else {
+        Some(nb.iter().filter(|&&j| lab[j as usize] == li).count() as f64 / nb.len() as f64)
+    }
+}
+
+/// Trustworthiness penalty of row `i`: how far beyond `low_i.len()` each of its neighbours
+/// in the low-dimensional map ranks among its neighbours in the full space (distances `d`).
+fn trust_penalty(i: usize, d: &[f64], low_i: &[u32]) -> f64 {
+    let mut pen = 0f64;
+    let kk = low_i.len();
+    for &j in low_i {
+        let j = j as usize;
+        let dj = d[j];
+        // rank of j among i's neighbours in the full space (1 = nearest), ties by index;
+        // counted without branches (d[i] = 0 is taken out afterwards) so it vectorises
+        let less: usize = d.iter().map(|&dl| (dl < dj) as usize).sum();
+        let ties: usize = d[..j].iter().map(|&dl| (dl == dj) as usize).sum();
+        let self_counted = (0.0 < dj || (dj == 0.0 && i < j)) as usize;
+        let rank = 1 + less + ties - self_counted;
+        if rank > kk {
+            pen += (rank - kk) as f64;
+        }
+    }
+    pen
+}
+
+/// Task `t`'s mean silhouette and same-label share over the rows, and its single-member
+/// classes (class counts `cnt`).
+fn task_stats(rows: &[RowStats], t: usize, cnt: &[usize]) -> LabelStats {
+    let (mut ss, mut ns, mut sk, mut nk) = (0f64, 0usize, 0f64, 0usize);
+    for r in rows {
+        if let Some(v) = r.0[t].0 {
+            ss += v;
+            ns += 1;
+        }
+        if let Some(v) = r.0[t].1 {
+            sk += v;
+            nk += 1;
+        }
+    }
+    let singletons = cnt
+        .iter()
+        .enumerate()
+        .filter(|&(_, &c)| c == 1)
+        .map(|(c, _)| c as u32)
+        .collect();
+    LabelStats {
+        silhouette: Silhouette {
+            score: (ns > 0).then(|| ss / ns as f64),
+            n_used: ns,
+            singletons,
+        },
+        knn_purity: (nk > 0).then(|| sk / nk as f64),
+    }
 }
 
 /// Mean silhouette (Rousseeuw 1987) of `labels` on `x`, Euclidean.

@@ -290,6 +290,75 @@ impl Builder {
         self.spk_index.insert(s.to_string(), k);
         k
     }
+
+    /// The utterance of one `frames.tsv` row (line `line`), added on its first row; its
+    /// speaker must be the same on every row.
+    fn frame_utterance(
+        &mut self,
+        path: &Path,
+        line: usize,
+        cols: &Columns,
+        utt: &str,
+        spk: &str,
+    ) -> Result<u32, CaptureError> {
+        if utt.is_empty() || spk.is_empty() {
+            return Err(CaptureError::Table {
+                path: path.to_path_buf(),
+                row: line,
+                field: if utt.is_empty() {
+                    cols.utterance.into()
+                } else {
+                    cols.speaker.into()
+                },
+                expected: "a non-empty name".into(),
+                found: "an empty field".into(),
+            });
+        }
+        let s = self.speaker(spk);
+        if let Some(&u) = self.utt_index.get(utt) {
+            if self.utt_speaker[u as usize] != s {
+                return Err(CaptureError::Table {
+                    path: path.to_path_buf(),
+                    row: line,
+                    field: cols.speaker.into(),
+                    expected: format!(
+                        "speaker '{}' (as on earlier rows of utterance '{utt}')",
+                        self.speakers[self.utt_speaker[u as usize] as usize]
+                    ),
+                    found: format!("'{spk}'"),
+                });
+            }
+            return Ok(u);
+        }
+        Ok(self.add_utterance(utt, s, 0))
+    }
+
+    /// Add utterance `name` of speaker `s` with `len` frames; returns its index.
+    fn add_utterance(&mut self, name: &str, s: u32, len: u32) -> u32 {
+        self.utterances.push(name.to_string());
+        self.utt_speaker.push(s);
+        self.utt_len.push(len);
+        let u = (self.utterances.len() - 1) as u32;
+        self.utt_index.insert(name.to_string(), u);
+        u
+    }
+
+    /// The finished table.
+    fn into_table(
+        self,
+        frame_utt: Vec<u32>,
+        frame_pos: Vec<u32>,
+        tasks: Vec<LabelTask>,
+    ) -> FrameTable {
+        FrameTable {
+            utterances: self.utterances,
+            utt_speaker: self.utt_speaker,
+            speakers: self.speakers,
+            frame_utt,
+            frame_pos,
+            tasks,
+        }
+    }
 }
 
 fn clean<'a>(opts: &'a LabelOptions, v: &'a str) -> Option<&'a str> {
@@ -330,62 +399,11 @@ pub fn read_frames_tsv(
     let header = for_each_row(path, |line, f| {
         if line == 1 {
             let head: Vec<String> = f.iter().map(|s| s.to_string()).collect();
-            ucol = column(path, &head, cols.utterance)?;
-            scol = column(path, &head, cols.speaker)?;
-            task_cols = (0..head.len())
-                .filter(|&c| c != ucol && c != scol)
-                .collect();
-            if !opts.columns.is_empty() {
-                for want in &opts.columns {
-                    if want != "speaker" {
-                        column(path, &head, want)?;
-                    }
-                }
-                task_cols.retain(|&c| opts.columns.contains(&head[c]));
-            }
+            (ucol, scol, task_cols) = frame_columns(path, &head, cols, opts)?;
             builders = task_cols.iter().map(|_| TaskBuilder::new()).collect();
             return Ok(());
         }
-        let (utt, spk) = (f[ucol], f[scol]);
-        if utt.is_empty() || spk.is_empty() {
-            return Err(CaptureError::Table {
-                path: path.to_path_buf(),
-                row: line,
-                field: if utt.is_empty() {
-                    cols.utterance.into()
-                } else {
-                    cols.speaker.into()
-                },
-                expected: "a non-empty name".into(),
-                found: "an empty field".into(),
-            });
-        }
-        let s = b.speaker(spk);
-        let u = match b.utt_index.get(utt) {
-            Some(&u) => {
-                if b.utt_speaker[u as usize] != s {
-                    return Err(CaptureError::Table {
-                        path: path.to_path_buf(),
-                        row: line,
-                        field: cols.speaker.into(),
-                        expected: format!(
-                            "speaker '{}' (as on earlier rows of utterance '{utt}')",
-                            b.speakers[b.utt_speaker[u as usize] as usize]
-                        ),
-                        found: format!("'{spk}'"),
-                    });
-                }
-                u
-            }
-            None => {
-                b.utterances.push(utt.to_string());
-                b.utt_speaker.push(s);
-                b.utt_len.push(0);
-                let u = (b.utterances.len() - 1) as u32;
-                b.utt_index.insert(utt.to_string(), u);
-                u
-            }
-        };
+        let u = b.frame_utterance(path, line, cols, f[ucol], f[scol])?;
         frame_utt.push(u);
         frame_pos.push(b.utt_len[u as usize]);
         b.utt_len[u as usize] += 1;
@@ -409,14 +427,31 @@ pub fn read_frames_tsv(
         .map(|(tb, &c)| tb.finish(&header[c]))
         .collect();
     tasks.push(speaker_task(&b, &frame_utt));
-    Ok(FrameTable {
-        utterances: b.utterances,
-        utt_speaker: b.utt_speaker,
-        speakers: b.speakers,
-        frame_utt,
-        frame_pos,
-        tasks,
-    })
+    Ok(b.into_table(frame_utt, frame_pos, tasks))
+}
+
+/// The utterance and speaker columns of a `frames.tsv` header and its task columns (all the
+/// others, or those `opts.columns` names, each of which must exist).
+fn frame_columns(
+    path: &Path,
+    head: &[String],
+    cols: &Columns,
+    opts: &LabelOptions,
+) -> Result<(usize, usize, Vec<usize>), CaptureError> {
+    let ucol = column(path, head, cols.utterance)?;
+    let scol = column(path, head, cols.speaker)?;
+    let mut task_cols: Vec<usize> = (0..head.len())
+        .filter(|&c| c != ucol && c != scol)
+        .collect();
+    if !opts.columns.is_empty() {
+        for want in &opts.columns {
+            if want != "speaker" {
+                column(path, head, want)?;
+            }
+        }
+        task_cols.retain(|&c| opts.columns.contains(&head[c]));
+    }
+    Ok((ucol, scol, task_cols))
 }
 
 /// Frame timing for the segment rule.
@@ -471,6 +506,47 @@ pub fn read_segments_within(
     opts: &LabelOptions,
     max_frames: usize,
 ) -> Result<FrameTable, CaptureError> {
+    let b = read_utterance_list(utt_path, cols, max_frames)?;
+    let mut per_utt = read_segment_rows(utt_path, seg_path, cols, timing, &b)?;
+    let total: usize = b.utt_len.iter().map(|&n| n as usize).sum();
+    let mut frame_utt = Vec::with_capacity(total);
+    let mut frame_pos = Vec::with_capacity(total);
+    let mut values = TaskBuilder::new();
+    for (u, segs) in per_utt.iter_mut().enumerate() {
+        segs.sort_by(|a, b| a.0.total_cmp(&b.0));
+        check_no_overlap(seg_path, segs)?;
+        let n = b.utt_len[u] as usize;
+        let mut k = 0usize;
+        for i in 0..n {
+            let t = timing.centre(i);
+            while k < segs.len() && segs[k].1 <= t {
+                k += 1;
+            }
+            let label = if k < segs.len() && segs[k].0 <= t && t < segs[k].1 {
+                clean(opts, &segs[k].2)
+            } else {
+                None
+            };
+            frame_utt.push(u as u32);
+            frame_pos.push(i as u32);
+            values.push(label);
+        }
+    }
+    let mut tasks = vec![values.finish(label_name)];
+    tasks.push(speaker_task(&b, &frame_utt));
+    Ok(b.into_table(frame_utt, frame_pos, tasks))
+}
+
+/// One segment of `segments.tsv`: start and end (s), label, and its line.
+type SegmentRow = (f64, f64, String, usize);
+
+/// Read `utterances.tsv`: each utterance once, with its speaker and a whole number of frames,
+/// at most `max_frames` frames in all.
+fn read_utterance_list(
+    utt_path: &Path,
+    cols: &Columns,
+    max_frames: usize,
+) -> Result<Builder, CaptureError> {
     let (uh, urows) = read_tsv(utt_path)?;
     let ucol = column(utt_path, &uh, cols.utterance)?;
     let scol = column(utt_path, &uh, cols.speaker)?;
@@ -516,20 +592,26 @@ pub fn read_segments_within(
         }
         listed += n as usize;
         let s = b.speaker(&f[scol]);
-        b.utterances.push(f[ucol].clone());
-        b.utt_speaker.push(s);
-        b.utt_len.push(n);
-        b.utt_index
-            .insert(f[ucol].clone(), (b.utterances.len() - 1) as u32);
+        b.add_utterance(&f[ucol], s, n);
     }
+    Ok(b)
+}
 
+/// Read `segments.tsv`, grouped per utterance of `b`: every row names a listed utterance and
+/// has times in seconds, an end after its start and within the utterance.
+fn read_segment_rows(
+    utt_path: &Path,
+    seg_path: &Path,
+    cols: &Columns,
+    timing: Timing,
+    b: &Builder,
+) -> Result<Vec<Vec<SegmentRow>>, CaptureError> {
     let (sh, srows) = read_tsv(seg_path)?;
     let su = column(seg_path, &sh, cols.utterance)?;
     let ss = column(seg_path, &sh, "start_s")?;
     let se = column(seg_path, &sh, "end_s")?;
     let sl = column(seg_path, &sh, "label")?;
-    // Segments grouped per utterance: (start, end, label, line).
-    let mut per_utt: Vec<Vec<(f64, f64, String, usize)>> = vec![Vec::new(); b.utterances.len()];
+    let mut per_utt: Vec<Vec<SegmentRow>> = vec![Vec::new(); b.utterances.len()];
     for (line, f) in &srows {
         let u = *b.utt_index.get(&f[su]).ok_or_else(|| CaptureError::Table {
             path: seg_path.to_path_buf(),
@@ -538,25 +620,7 @@ pub fn read_segments_within(
             expected: format!("an utterance listed in {}", utt_path.display()),
             found: format!("'{}'", f[su]),
         })?;
-        let num = |c: usize, name: &str| -> Result<f64, CaptureError> {
-            let v: f64 = f[c].parse().map_err(|_| CaptureError::Table {
-                path: seg_path.to_path_buf(),
-                row: *line,
-                field: name.into(),
-                expected: "a time in seconds".into(),
-                found: format!("'{}'", f[c]),
-            })?;
-            if !v.is_finite() || v < 0.0 {
-                return Err(CaptureError::Table {
-                    path: seg_path.to_path_buf(),
-                    row: *line,
-                    field: name.into(),
-                    expected: "a finite time >= 0".into(),
-                    found: format!("'{}'", f[c]),
-                });
-            }
-            Ok(v)
-        };
+        let num = |c: usize, name: &str| seconds(seg_path, *line, name, &f[c]);
         let (s, e) = (num(ss, "start_s")?, num(se, "end_s")?);
         if e <= s {
             return Err(CaptureError::Table {
@@ -586,53 +650,47 @@ pub fn read_segments_within(
         }
         per_utt[u as usize].push((s, e, f[sl].clone(), *line));
     }
-    let total: usize = b.utt_len.iter().map(|&n| n as usize).sum();
-    let mut frame_utt = Vec::with_capacity(total);
-    let mut frame_pos = Vec::with_capacity(total);
-    let mut values = TaskBuilder::new();
-    for (u, segs) in per_utt.iter_mut().enumerate() {
-        segs.sort_by(|a, b| a.0.total_cmp(&b.0));
-        for w in segs.windows(2) {
-            if w[1].0 < w[0].1 - 1e-9 {
-                return Err(CaptureError::Table {
-                    path: seg_path.to_path_buf(),
-                    row: w[1].3,
-                    field: "start_s".into(),
-                    expected: format!(
-                        "a start at or after the end {} of the segment on row {} (segments must not overlap)",
-                        w[0].1, w[0].3
-                    ),
-                    found: format!("{}", w[1].0),
-                });
-            }
-        }
-        let n = b.utt_len[u] as usize;
-        let mut k = 0usize;
-        for i in 0..n {
-            let t = timing.centre(i);
-            while k < segs.len() && segs[k].1 <= t {
-                k += 1;
-            }
-            let label = if k < segs.len() && segs[k].0 <= t && t < segs[k].1 {
-                clean(opts, &segs[k].2)
-            } else {
-                None
-            };
-            frame_utt.push(u as u32);
-            frame_pos.push(i as u32);
-            values.push(label);
+    Ok(per_utt)
+}
+
+/// A finite time in seconds, >= 0, from field `name` of row `line`.
+fn seconds(path: &Path, line: usize, name: &str, v: &str) -> Result<f64, CaptureError> {
+    let t: f64 = v.parse().map_err(|_| CaptureError::Table {
+        path: path.to_path_buf(),
+        row: line,
+        field: name.into(),
+        expected: "a time in seconds".into(),
+        found: format!("'{v}'"),
+    })?;
+    if !t.is_finite() || t < 0.0 {
+        return Err(CaptureError::Table {
+            path: path.to_path_buf(),
+            row: line,
+            field: name.into(),
+            expected: "a finite time >= 0".into(),
+            found: format!("'{v}'"),
+        });
+    }
+    Ok(t)
+}
+
+/// One utterance's segments, sorted by start, must not overlap.
+fn check_no_overlap(seg_path: &Path, segs: &[SegmentRow]) -> Result<(), CaptureError> {
+    for w in segs.windows(2) {
+        if w[1].0 < w[0].1 - 1e-9 {
+            return Err(CaptureError::Table {
+                path: seg_path.to_path_buf(),
+                row: w[1].3,
+                field: "start_s".into(),
+                expected: format!(
+                    "a start at or after the end {} of the segment on row {} (segments must not overlap)",
+                    w[0].1, w[0].3
+                ),
+                found: format!("{}", w[1].0),
+            });
         }
     }
-    let mut tasks = vec![values.finish(label_name)];
-    tasks.push(speaker_task(&b, &frame_utt));
-    Ok(FrameTable {
-        utterances: b.utterances,
-        utt_speaker: b.utt_speaker,
-        speakers: b.speakers,
-        frame_utt,
-        frame_pos,
-        tasks,
-    })
+    Ok(())
 }
 
 /// Read a two-column label merge map (`from<TAB>to`, optional header `from<TAB>to`).

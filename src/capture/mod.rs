@@ -224,29 +224,7 @@ impl Capture {
         if !meta.is_dir() {
             return Err(CaptureError::invalid(dir, "capture", "a folder", "a file"));
         }
-        let toml_path = dir.join("capture.toml");
-        let config: CaptureConfig = if toml_path.exists() {
-            let text =
-                std::fs::read_to_string(&toml_path).map_err(|e| CaptureError::io(&toml_path, e))?;
-            toml::from_str(&text).map_err(|e| {
-                CaptureError::invalid(
-                    &toml_path,
-                    "capture.toml",
-                    "valid TOML with known keys",
-                    e.message().to_string(),
-                )
-            })?
-        } else {
-            CaptureConfig::default()
-        };
-        if !(config.hop_s.is_finite() && config.hop_s > 0.0) {
-            return Err(CaptureError::invalid(
-                &toml_path,
-                "hop_s",
-                "a frame shift > 0 seconds",
-                format!("{}", config.hop_s),
-            ));
-        }
+        let config = read_config(dir)?;
         let name = config.name.clone().unwrap_or_else(|| {
             dir.canonicalize()
                 .ok()
@@ -255,79 +233,8 @@ impl Capture {
         });
 
         let layers = find_layers(dir, &config)?;
-        let mut label_opts = opts.labels.clone();
-        if label_opts.columns.is_empty() {
-            label_opts.columns = config.label_columns.clone();
-        }
-        let cols = labels::Columns {
-            utterance: &config.utterance_column,
-            speaker: &config.speaker_column,
-        };
-        let frames_tsv = dir.join("frames.tsv");
-        let (utt_tsv, seg_tsv) = (dir.join("utterances.tsv"), dir.join("segments.tsv"));
-        let (mut frames, label_source) = if frames_tsv.exists() {
-            (
-                labels::read_frames_tsv(&frames_tsv, &cols, &label_opts)?,
-                "frames.tsv".to_string(),
-            )
-        } else if utt_tsv.exists() && seg_tsv.exists() {
-            let timing = Timing {
-                hop_s: config.hop_s,
-                win_s: config.win_s.unwrap_or(config.hop_s),
-            };
-            (
-                labels::read_segments_within(
-                    &utt_tsv,
-                    &seg_tsv,
-                    &cols,
-                    &config.segment_label,
-                    timing,
-                    &label_opts,
-                    // The layers hold this many frames; more in the table is a mismatch that
-                    // the check below reports, so the conversion need not go further.
-                    layers.iter().map(|l| l.frames()).max().unwrap_or(0),
-                )?,
-                "utterances.tsv + segments.tsv".to_string(),
-            )
-        } else {
-            return Err(CaptureError::invalid(
-                dir,
-                "labels",
-                "frames.tsv, or utterances.tsv with segments.tsv",
-                "neither",
-            ));
-        };
-        // Agreement between layers and labels.
-        let n = frames.n_frames();
-        for l in &layers {
-            if l.frames() != n {
-                let first = &layers[0];
-                let found = if first.frames() != l.frames() {
-                    format!(
-                        "{} frames, while {} has {}",
-                        l.frames(),
-                        first.path().display(),
-                        first.frames()
-                    )
-                } else {
-                    format!("{} frames", l.frames())
-                };
-                return Err(CaptureError::invalid(
-                    l.path(),
-                    "frames",
-                    format!("{n} frames (rows of the label table {label_source})"),
-                    found,
-                ));
-            }
-            if l.dim() == 0 {
-                return Err(CaptureError::invalid(
-                    l.path(),
-                    "dim",
-                    "at least one feature",
-                    "0",
-                ));
-            }
-        }
+        let (frames, label_source) = read_labels(dir, &config, opts, &layers)?;
+        check_layers_match(&layers, frames.n_frames(), &label_source)?;
         let mut cap = Capture {
             dir: dir.to_path_buf(),
             name,
@@ -338,20 +245,26 @@ impl Capture {
             label_source,
         };
         if opts.allow_nonfinite {
-            let bad = cap.scan_nonfinite_frames();
-            if bad.iter().any(|&b| b) {
-                frames = std::mem::replace(&mut cap.frames, empty_table());
-                frames.mask_frames(&bad);
-                cap.frames = frames;
-                cap.nonfinite_frames = bad
-                    .iter()
-                    .enumerate()
-                    .filter(|(_, &b)| b)
-                    .map(|(i, _)| i)
-                    .collect();
-            }
+            cap.mask_nonfinite_frames();
         }
         Ok(cap)
+    }
+
+    /// Mark the frames with a non-finite value in any layer unlabelled in every task, and
+    /// list them.
+    fn mask_nonfinite_frames(&mut self) {
+        let bad = self.scan_nonfinite_frames();
+        if bad.iter().any(|&b| b) {
+            let mut frames = std::mem::replace(&mut self.frames, empty_table());
+            frames.mask_frames(&bad);
+            self.frames = frames;
+            self.nonfinite_frames = bad
+                .iter()
+                .enumerate()
+                .filter(|(_, &b)| b)
+                .map(|(i, _)| i)
+                .collect();
+        }
     }
 
     /// Number of frames.
@@ -492,61 +405,134 @@ fn empty_table() -> FrameTable {
     }
 }
 
-fn find_layers(dir: &Path, config: &CaptureConfig) -> Result<Vec<LayerSource>, CaptureError> {
-    let mut entries: Vec<(usize, PathBuf)> = Vec::new();
-    let mut npys: Vec<PathBuf> = Vec::new();
-    let rd = std::fs::read_dir(dir).map_err(|e| CaptureError::io(dir, e))?;
-    for e in rd {
-        let e = e.map_err(|e| CaptureError::io(dir, e))?;
-        let name = e.file_name().to_string_lossy().into_owned();
-        if name.ends_with(".npy") {
-            npys.push(e.path());
+/// The folder's `capture.toml` (defaults when there is none), with a usable frame shift.
+fn read_config(dir: &Path) -> Result<CaptureConfig, CaptureError> {
+    let toml_path = dir.join("capture.toml");
+    let config: CaptureConfig = if toml_path.exists() {
+        let text =
+            std::fs::read_to_string(&toml_path).map_err(|e| CaptureError::io(&toml_path, e))?;
+        toml::from_str(&text).map_err(|e| {
+            CaptureError::invalid(
+                &toml_path,
+                "capture.toml",
+                "valid TOML with known keys",
+                e.message().to_string(),
+            )
+        })?
+    } else {
+        CaptureConfig::default()
+    };
+    if !(config.hop_s.is_finite() && config.hop_s > 0.0) {
+        return Err(CaptureError::invalid(
+            &toml_path,
+            "hop_s",
+            "a frame shift > 0 seconds",
+            format!("{}", config.hop_s),
+        ));
+    }
+    Ok(config)
+}
+
+/// The folder's label table, from `frames.tsv` or else `utterances.tsv` with `segments.tsv`,
+/// and which of them it came from.
+fn read_labels(
+    dir: &Path,
+    config: &CaptureConfig,
+    opts: &OpenOptions,
+    layers: &[LayerSource],
+) -> Result<(FrameTable, String), CaptureError> {
+    let mut label_opts = opts.labels.clone();
+    if label_opts.columns.is_empty() {
+        label_opts.columns = config.label_columns.clone();
+    }
+    let cols = labels::Columns {
+        utterance: &config.utterance_column,
+        speaker: &config.speaker_column,
+    };
+    let frames_tsv = dir.join("frames.tsv");
+    let (utt_tsv, seg_tsv) = (dir.join("utterances.tsv"), dir.join("segments.tsv"));
+    if frames_tsv.exists() {
+        Ok((
+            labels::read_frames_tsv(&frames_tsv, &cols, &label_opts)?,
+            "frames.tsv".to_string(),
+        ))
+    } else if utt_tsv.exists() && seg_tsv.exists() {
+        let timing = Timing {
+            hop_s: config.hop_s,
+            win_s: config.win_s.unwrap_or(config.hop_s),
+        };
+        Ok((
+            labels::read_segments_within(
+                &utt_tsv,
+                &seg_tsv,
+                &cols,
+                &config.segment_label,
+                timing,
+                &label_opts,
+                // The layers hold this many frames; more in the table is a mismatch that
+                // the check below reports, so the conversion need not go further.
+                layers.iter().map(|l| l.frames()).max().unwrap_or(0),
+            )?,
+            "utterances.tsv + segments.tsv".to_string(),
+        ))
+    } else {
+        Err(CaptureError::invalid(
+            dir,
+            "labels",
+            "frames.tsv, or utterances.tsv with segments.tsv",
+            "neither",
+        ))
+    }
+}
+
+/// Agreement between layers and labels: every layer has the label table's `n` frames and
+/// at least one feature.
+fn check_layers_match(
+    layers: &[LayerSource],
+    n: usize,
+    label_source: &str,
+) -> Result<(), CaptureError> {
+    for l in layers {
+        if l.frames() != n {
+            let first = &layers[0];
+            let found = if first.frames() != l.frames() {
+                format!(
+                    "{} frames, while {} has {}",
+                    l.frames(),
+                    first.path().display(),
+                    first.frames()
+                )
+            } else {
+                format!("{} frames", l.frames())
+            };
+            return Err(CaptureError::invalid(
+                l.path(),
+                "frames",
+                format!("{n} frames (rows of the label table {label_source})"),
+                found,
+            ));
         }
-        if let Some(id) = match_pattern(&config.layer_pattern, &name) {
-            entries.push((id, e.path()));
+        if l.dim() == 0 {
+            return Err(CaptureError::invalid(
+                l.path(),
+                "dim",
+                "at least one feature",
+                "0",
+            ));
         }
     }
+    Ok(())
+}
+
+fn find_layers(dir: &Path, config: &CaptureConfig) -> Result<Vec<LayerSource>, CaptureError> {
+    let (entries, npys) = list_layer_files(dir, config)?;
     let stack = match &config.stack_file {
         Some(s) => Some(dir.join(s)),
         None if entries.is_empty() && npys.len() == 1 => Some(npys[0].clone()),
         None => None,
     };
     if let Some(p) = stack.filter(|_| entries.is_empty() || config.stack_file.is_some()) {
-        let f = std::sync::Arc::new(NpyFile::open(&p)?);
-        if f.header().shape.len() != 3 {
-            return Err(CaptureError::invalid(
-                &p,
-                "shape",
-                "a 3-D (layers, frames, dim) array for a single-file capture",
-                format!("{:?}", f.header().shape),
-            ));
-        }
-        let (l, n, d) = f.layer_shape();
-        // An empty stack can claim any number of layers (the data size is 0 bytes); refuse it
-        // before making one source per claimed layer.
-        if n == 0 || d == 0 {
-            return Err(CaptureError::invalid(
-                &p,
-                "shape",
-                "at least one frame and one feature per layer",
-                format!("{:?}", f.header().shape),
-            ));
-        }
-        if l == 0 {
-            return Err(CaptureError::invalid(
-                &p,
-                "shape",
-                "at least one layer",
-                "0 layers",
-            ));
-        }
-        return Ok((0..l)
-            .map(|i| LayerSource {
-                id: i,
-                file: f.clone(),
-                slot: i,
-            })
-            .collect());
+        return stack_layers(&p);
     }
     if entries.is_empty() {
         return Err(CaptureError::invalid(
@@ -563,6 +549,76 @@ fn find_layers(dir: &Path, config: &CaptureConfig) -> Result<Vec<LayerSource>, C
             },
         ));
     }
+    per_file_layers(entries)
+}
+
+/// Files that match the layer pattern, with their layer numbers.
+type NumberedFiles = Vec<(usize, PathBuf)>;
+
+/// The files of `dir` that match the layer pattern (with their layer numbers), and every
+/// `.npy` file in it.
+fn list_layer_files(
+    dir: &Path,
+    config: &CaptureConfig,
+) -> Result<(NumberedFiles, Vec<PathBuf>), CaptureError> {
+    let mut entries: NumberedFiles = Vec::new();
+    let mut npys: Vec<PathBuf> = Vec::new();
+    let rd = std::fs::read_dir(dir).map_err(|e| CaptureError::io(dir, e))?;
+    for e in rd {
+        let e = e.map_err(|e| CaptureError::io(dir, e))?;
+        let name = e.file_name().to_string_lossy().into_owned();
+        if name.ends_with(".npy") {
+            npys.push(e.path());
+        }
+        if let Some(id) = match_pattern(&config.layer_pattern, &name) {
+            entries.push((id, e.path()));
+        }
+    }
+    Ok((entries, npys))
+}
+
+/// The layers of a single-file capture: one 3-D (layers, frames, dim) `.npy` stack.
+fn stack_layers(p: &Path) -> Result<Vec<LayerSource>, CaptureError> {
+    let f = std::sync::Arc::new(NpyFile::open(p)?);
+    if f.header().shape.len() != 3 {
+        return Err(CaptureError::invalid(
+            p,
+            "shape",
+            "a 3-D (layers, frames, dim) array for a single-file capture",
+            format!("{:?}", f.header().shape),
+        ));
+    }
+    let (l, n, d) = f.layer_shape();
+    // An empty stack can claim any number of layers (the data size is 0 bytes); refuse it
+    // before making one source per claimed layer.
+    if n == 0 || d == 0 {
+        return Err(CaptureError::invalid(
+            p,
+            "shape",
+            "at least one frame and one feature per layer",
+            format!("{:?}", f.header().shape),
+        ));
+    }
+    if l == 0 {
+        return Err(CaptureError::invalid(
+            p,
+            "shape",
+            "at least one layer",
+            "0 layers",
+        ));
+    }
+    Ok((0..l)
+        .map(|i| LayerSource {
+            id: i,
+            file: f.clone(),
+            slot: i,
+        })
+        .collect())
+}
+
+/// The layers of a capture with one 2-D `.npy` file per layer, ordered by layer number (each
+/// number once).
+fn per_file_layers(mut entries: NumberedFiles) -> Result<Vec<LayerSource>, CaptureError> {
     entries.sort();
     for w in entries.windows(2) {
         if w[0].0 == w[1].0 {

@@ -89,6 +89,17 @@ const MAX_HEADER_LEN: usize = 1 << 20;
 /// Parse a `.npy` header from the first bytes of a file (`bytes` may be the whole file).
 /// `file_len` is the real length of the file, used to check the data size.
 pub fn parse_header(path: &Path, bytes: &[u8], file_len: u64) -> Result<NpyHeader, CaptureError> {
+    let (start, end) = header_span(path, bytes, file_len)?;
+    let text = std::str::from_utf8(&bytes[start..end])
+        .map_err(|_| bad(path, "header", "ASCII/UTF-8 text", "invalid bytes"))?;
+    let header = header_fields(path, text, end)?;
+    check_data_size(path, &header, file_len)?;
+    Ok(header)
+}
+
+/// Where the header text lies in `bytes` (start, end): after the magic string, the format
+/// version and the header length, which must fit both the limit and the bytes at hand.
+fn header_span(path: &Path, bytes: &[u8], file_len: u64) -> Result<(usize, usize), CaptureError> {
     const MAGIC: &[u8] = b"\x93NUMPY";
     if bytes.len() < 10 || &bytes[..6] != MAGIC {
         let shown: String = bytes
@@ -142,8 +153,11 @@ pub fn parse_header(path: &Path, bytes: &[u8], file_len: u64) -> Result<NpyHeade
             format!("a file of {} bytes", file_len),
         ));
     }
-    let text = std::str::from_utf8(&bytes[start..end])
-        .map_err(|_| bad(path, "header", "ASCII/UTF-8 text", "invalid bytes"))?;
+    Ok((start, end))
+}
+
+/// The header dict's dtype, order and shape, with the data starting at `data_offset`.
+fn header_fields(path: &Path, text: &str, data_offset: usize) -> Result<NpyHeader, CaptureError> {
     let dict = parse_dict(text).ok_or_else(|| {
         bad(
             path,
@@ -174,13 +188,17 @@ pub fn parse_header(path: &Path, bytes: &[u8], file_len: u64) -> Result<NpyHeade
     let shape = dict
         .shape
         .ok_or_else(|| bad(path, "shape", "a tuple of integers", "no 'shape' key"))?;
-    let header = NpyHeader {
+    Ok(NpyHeader {
         dtype,
         big_endian,
         fortran_order,
         shape,
-        data_offset: end,
-    };
+        data_offset,
+    })
+}
+
+/// The shape must be addressable and the bytes after the header exactly its data.
+fn check_data_size(path: &Path, header: &NpyHeader, file_len: u64) -> Result<(), CaptureError> {
     let n = header.n_elements().ok_or_else(|| {
         bad(
             path,
@@ -205,8 +223,9 @@ pub fn parse_header(path: &Path, bytes: &[u8], file_len: u64) -> Result<NpyHeade
             format!("{:?}", header.shape),
         ));
     }
+    let dtype = header.dtype;
     let need = (n as u128) * (dtype.size() as u128);
-    let have = (file_len as u128).saturating_sub(end as u128);
+    let have = (file_len as u128).saturating_sub(header.data_offset as u128);
     if need != have {
         return Err(bad(
             path,
@@ -219,7 +238,7 @@ pub fn parse_header(path: &Path, bytes: &[u8], file_len: u64) -> Result<NpyHeade
             format!("{have} bytes after the header (file truncated or shape wrong)"),
         ));
     }
-    Ok(header)
+    Ok(())
 }
 
 fn truncate(s: &str, n: usize) -> String {

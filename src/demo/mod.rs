@@ -2,15 +2,15 @@
 //! voice-controlled greenhouse irrigation panel. Synthetic talkers ([`synth`]) speak command
 //! words built from ten vowels and three fricatives; a log-mel front end ([`features`]) feeds
 //! an MLP ([`mlp`]) that learns the phone of each frame from talkers it was trained on. Two
-//! checkpoints — early in training and at the end — are written as captures in the format of
-//! `docs/design.md`, so every analysis of voxstrata has something real to work on.
+//! checkpoints — early in training and at the end — become captures in the format of
+//! `docs/design.md` ([`build`] computes them; `commands::demo` writes them), so every analysis
+//! of voxstrata has something real to work on.
 
 pub mod features;
 pub mod mlp;
 pub mod synth;
 
 use std::fmt::Write as _;
-use std::path::{Path, PathBuf};
 
 use ndarray::{s, Array2};
 use rand::seq::SliceRandom;
@@ -19,7 +19,6 @@ use rand_chacha::ChaCha8Rng;
 use rayon::prelude::*;
 
 use crate::error::{Error, Result};
-use crate::write::{prepare_out_dir, write_atomic};
 use crate::Progress;
 use features::{FrontEnd, N_MEL};
 use mlp::{Adam, Mlp};
@@ -35,13 +34,9 @@ pub enum DemoSize {
     Small,
 }
 
-/// Options of `voxstrata demo`.
+/// Options of the demo scenario.
 #[derive(Clone, Debug, Default)]
 pub struct DemoOptions {
-    /// Output folder (gets `early/` and `final/`).
-    pub out: PathBuf,
-    /// Write into a non-empty folder.
-    pub force: bool,
     /// Seed for talkers, utterances, initial weights and minibatch order.
     pub seed: u64,
     /// Size of the scenario.
@@ -113,8 +108,28 @@ pub struct DemoSummary {
     pub steps: (usize, usize),
     /// Speaker-disjoint held-out frame accuracy of the early and final checkpoints.
     pub heldout_accuracy: (f64, f64),
-    /// Capture folders written.
-    pub captures: Vec<PathBuf>,
+}
+
+/// One capture of the scenario, ready to be written as a capture folder.
+#[derive(Clone, Debug)]
+pub struct ScenarioCapture {
+    /// Folder name under the output folder (`early` or `final`).
+    pub name: &'static str,
+    /// Layers as f16 bits (rows, columns, row-major values), layer 0 first.
+    pub layers: Vec<(usize, usize, Vec<u16>)>,
+    /// The text of its `capture.toml`.
+    pub capture_toml: String,
+}
+
+/// The whole demo scenario, computed and held in memory; `commands::demo` writes it.
+#[derive(Clone, Debug)]
+pub struct Scenario {
+    /// The early and the final capture, in that order.
+    pub captures: Vec<ScenarioCapture>,
+    /// The text of `frames.tsv`, shared by both captures.
+    pub frames_tsv: String,
+    /// What was made.
+    pub summary: DemoSummary,
 }
 
 /// Mix a seed with stream numbers (SplitMix64 finaliser; Steele et al. 2014).
@@ -136,24 +151,134 @@ struct Utterance {
     phones: Vec<usize>,
 }
 
-/// Build the demo and write `early/` and `final/` under `opts.out`.
-pub fn run(opts: &DemoOptions, progress: &Progress) -> Result<DemoSummary> {
-    prepare_out_dir(&opts.out, opts.force)?;
-    let sc = opts.size.scale();
+/// Network inputs and labels of the training and held-out talkers.
+struct Sets {
+    x_train: Array2<f32>,
+    y_train: Vec<usize>,
+    x_test: Array2<f32>,
+    y_test: Vec<usize>,
+}
 
-    // Talkers: the same number per group; the last `heldout_per_group` of each are never
-    // seen in training.
+/// The captured frames: stacked network inputs and their centre (layer 0) frames.
+struct Captured {
+    x: Array2<f32>,
+    centre: Array2<f32>,
+}
+
+/// The trained network's two checkpoints and where they were taken.
+struct Trained {
+    early: Checkpoint,
+    fin: Checkpoint,
+    early_at: usize,
+    total: usize,
+}
+
+/// Build the demo scenario in memory: talkers, speech, a trained network's two checkpoints,
+/// and the text of the files each capture holds. Writes nothing.
+pub fn build(opts: &DemoOptions, progress: &Progress) -> Result<Scenario> {
+    let sc = opts.size.scale();
+    let (talkers, heldout) = draw_talkers(opts.seed, &sc);
+    let utts = synthesise_all(&talkers, &sc, opts.seed, progress);
+
+    let train_utts: Vec<usize> = (0..utts.len())
+        .filter(|&i| !heldout[utts[i].talker])
+        .collect();
+    let test_utts: Vec<usize> = (0..utts.len())
+        .filter(|&i| heldout[utts[i].talker])
+        .collect();
+    let normed = normalise(&utts, &train_utts);
+    let (x_train, y_train) = stacked(&normed, &utts, &train_utts);
+    let (x_test, y_test) = stacked(&normed, &utts, &test_utts);
+    if x_train.nrows() == 0 || x_test.nrows() == 0 {
+        return Err(Error::Internal(
+            "demo produced no training or test frames".into(),
+        ));
+    }
+    let sets = Sets {
+        x_train,
+        y_train,
+        x_test,
+        y_test,
+    };
+
+    let cap_utts = choose_captured(&utts, talkers.len(), &sc);
+    let (x_cap, _) = stacked(&normed, &utts, &cap_utts);
+    let centre: Array2<f32> = x_cap
+        .slice(s![.., CONTEXT * N_MEL..(CONTEXT + 1) * N_MEL])
+        .to_owned();
+    let cap = Captured { x: x_cap, centre };
+
+    let trained = train(&sets, &cap, &sc, opts.seed, progress)?;
+    let frames_tsv = frame_table(&utts, &talkers, &cap_utts);
+
+    let heldout_names: Vec<&str> = talkers
+        .iter()
+        .zip(&heldout)
+        .filter(|(_, h)| **h)
+        .map(|(t, _)| t.name.as_str())
+        .collect();
+    let notes = Notes {
+        talkers: talkers.len(),
+        input_width: sets.x_train.ncols(),
+        batch: sc.batch,
+        seed: opts.seed,
+        total_steps: trained.total,
+        training_talkers: heldout.iter().filter(|h| !**h).count(),
+        heldout_names: heldout_names.join(" "),
+        heldout_frames: sets.y_test.len(),
+    };
+    let summary = DemoSummary {
+        talkers: talkers.len(),
+        heldout_talkers: heldout_names.len(),
+        capture_frames: cap.x.nrows(),
+        train_frames: sets.x_train.nrows(),
+        steps: (trained.early_at, trained.total),
+        heldout_accuracy: (trained.early.accuracy, trained.fin.accuracy),
+    };
+    let Trained {
+        early,
+        fin,
+        early_at,
+        total,
+    } = trained;
+    let captures = [("early", early, early_at), ("final", fin, total)]
+        .into_iter()
+        .map(|(name, ck, steps)| ScenarioCapture {
+            name,
+            capture_toml: capture_toml(&notes, &ck, name, steps),
+            layers: ck.layers,
+        })
+        .collect();
+    Ok(Scenario {
+        captures,
+        frames_tsv,
+        summary,
+    })
+}
+
+/// Talkers: the same number per group; the last `heldout_per_group` of each are never seen
+/// in training (the flags say which).
+fn draw_talkers(seed: u64, sc: &Scale) -> (Vec<Talker>, Vec<bool>) {
     let mut talkers = Vec::new();
     let mut heldout = Vec::new();
     for (g, group) in Group::ALL.iter().enumerate() {
         for k in 0..sc.talkers_per_group {
-            let mut rng = ChaCha8Rng::seed_from_u64(sub_seed(opts.seed, 1, (g * 1000 + k) as u64));
+            let mut rng = ChaCha8Rng::seed_from_u64(sub_seed(seed, 1, (g * 1000 + k) as u64));
             heldout.push(k >= sc.talkers_per_group - sc.heldout_per_group);
             talkers.push(Talker::draw(*group, k + 1, &mut rng));
         }
     }
+    (talkers, heldout)
+}
 
-    // Synthesis and front end, one utterance per task (each with its own seed).
+/// Synthesis and front end, one utterance per task (each with its own seed), talker by
+/// talker.
+fn synthesise_all(
+    talkers: &[Talker],
+    sc: &Scale,
+    seed: u64,
+    progress: &Progress,
+) -> Vec<Utterance> {
     let step = progress.step(
         "synthesising speech",
         (talkers.len() * sc.utts_per_talker) as u64,
@@ -162,12 +287,10 @@ pub fn run(opts: &DemoOptions, progress: &Progress) -> Result<DemoSummary> {
     let jobs: Vec<(usize, usize)> = (0..talkers.len())
         .flat_map(|t| (0..sc.utts_per_talker).map(move |u| (t, u)))
         .collect();
-    let utts: Vec<Utterance> = jobs
-        .par_iter()
+    jobs.par_iter()
         .map(|&(t, u)| {
             let talker = &talkers[t];
-            let mut rng =
-                ChaCha8Rng::seed_from_u64(sub_seed(opts.seed, 2, (t * 100_000 + u) as u64));
+            let mut rng = ChaCha8Rng::seed_from_u64(sub_seed(seed, 2, (t * 100_000 + u) as u64));
             let segs = synth::draw_phones(talker, &mut rng);
             let wave = synth::synthesise(talker, &segs, &mut rng);
             let mel = fe.log_mel(&wave);
@@ -185,43 +308,33 @@ pub fn run(opts: &DemoOptions, progress: &Progress) -> Result<DemoSummary> {
                 phones,
             }
         })
-        .collect();
-    drop(step);
+        .collect()
+}
 
-    // Normalise each channel with the mean and deviation of the training talkers' frames
-    // (one global transform: nothing per talker, so speaker cues stay in the input).
-    let train_utts: Vec<usize> = (0..utts.len())
-        .filter(|&i| !heldout[utts[i].talker])
-        .collect();
-    let test_utts: Vec<usize> = (0..utts.len())
-        .filter(|&i| heldout[utts[i].talker])
-        .collect();
-    let (mean, sd) = channel_stats(&utts, &train_utts);
-    let norm = |u: &Utterance| -> Array2<f32> {
-        let mut f = u.feats.clone();
-        for mut row in f.outer_iter_mut() {
-            for c in 0..N_MEL {
-                row[c] = (row[c] - mean[c]) / sd[c];
+/// Normalise each channel with the mean and deviation of the training talkers' frames
+/// (one global transform: nothing per talker, so speaker cues stay in the input).
+fn normalise(utts: &[Utterance], train_utts: &[usize]) -> Vec<Array2<f32>> {
+    let (mean, sd) = channel_stats(utts, train_utts);
+    utts.iter()
+        .map(|u| {
+            let mut f = u.feats.clone();
+            for mut row in f.outer_iter_mut() {
+                for c in 0..N_MEL {
+                    row[c] = (row[c] - mean[c]) / sd[c];
+                }
             }
-        }
-        f
-    };
-    let normed: Vec<Array2<f32>> = utts.iter().map(norm).collect();
-    let stack = |ids: &[usize]| -> (Array2<f32>, Vec<usize>) { stacked(&normed, &utts, ids) };
-    let (x_train, y_train) = stack(&train_utts);
-    let (x_test, y_test) = stack(&test_utts);
-    if x_train.nrows() == 0 || x_test.nrows() == 0 {
-        return Err(Error::Internal(
-            "demo produced no training or test frames".into(),
-        ));
-    }
+            f
+        })
+        .collect()
+}
 
-    // The captured utterances: round-robin over talkers (utterance 1 of every talker, then
-    // utterance 2, ...) until the frame budget is met; stored grouped by talker.
+/// The captured utterances: round-robin over talkers (utterance 1 of every talker, then
+/// utterance 2, ...) until the frame budget is met; returned grouped by talker.
+fn choose_captured(utts: &[Utterance], n_talkers: usize, sc: &Scale) -> Vec<usize> {
     let mut chosen = vec![false; utts.len()];
     let mut frames = 0usize;
     'outer: for u in 0..sc.utts_per_talker {
-        for t in 0..talkers.len() {
+        for t in 0..n_talkers {
             let i = t * sc.utts_per_talker + u;
             chosen[i] = true;
             frames += utts[i].feats.nrows();
@@ -230,21 +343,25 @@ pub fn run(opts: &DemoOptions, progress: &Progress) -> Result<DemoSummary> {
             }
         }
     }
-    let cap_utts: Vec<usize> = (0..utts.len()).filter(|&i| chosen[i]).collect();
-    let (x_cap, _) = stack(&cap_utts);
-    let centre: Array2<f32> = x_cap
-        .slice(s![.., CONTEXT * N_MEL..(CONTEXT + 1) * N_MEL])
-        .to_owned();
+    (0..utts.len()).filter(|&i| chosen[i]).collect()
+}
 
-    // Training: fixed minibatch order from the seed, single-threaded products.
-    let mut rng = ChaCha8Rng::seed_from_u64(sub_seed(opts.seed, 3, 0));
-    let mut sizes = vec![x_train.ncols()];
-    sizes.extend_from_slice(&HIDDEN);
-    sizes.push(PHONES.len());
-    let mut net = Mlp::new(&sizes, &mut rng);
+/// Training: fixed minibatch order from the seed, single-threaded products; the early
+/// checkpoint is taken after `early_steps` minibatches, the final one at the end.
+fn train(
+    sets: &Sets,
+    cap: &Captured,
+    sc: &Scale,
+    seed: u64,
+    progress: &Progress,
+) -> Result<Trained> {
+    let x_train = &sets.x_train;
+    let mut rng = ChaCha8Rng::seed_from_u64(sub_seed(seed, 3, 0));
+    let mut net = Mlp::new(&layer_sizes(x_train.ncols()), &mut rng);
     let steps_per_epoch = x_train.nrows().div_ceil(sc.batch);
     let total = sc.epochs * steps_per_epoch;
     let early_at = sc.early_steps.min(total);
+    let take = |net: &Mlp| checkpoint(net, &cap.x, &cap.centre, &sets.x_test, &sets.y_test);
     let step = progress.step("training", total as u64);
     let mut early = None;
     let mut done = 0usize;
@@ -252,26 +369,16 @@ pub fn run(opts: &DemoOptions, progress: &Progress) -> Result<DemoSummary> {
     let mut xb = Array2::<f32>::zeros((sc.batch, x_train.ncols()));
     for epoch in 0..sc.epochs {
         order.shuffle(&mut rng);
-        // Step size halves over the last epochs (common practice).
-        let lr = if epoch * 3 >= sc.epochs * 2 {
-            5e-4
-        } else {
-            1.5e-3
-        };
-        let opt = Adam {
-            lr,
-            layer_decay: LAYER_DECAY,
-            ..Adam::default()
-        };
+        let opt = epoch_optimiser(epoch, sc.epochs);
         for chunk in order.chunks(sc.batch) {
             if done == early_at {
-                early = Some(checkpoint(&net, &x_cap, &centre, &x_test, &y_test));
+                early = Some(take(&net));
             }
             let mut xb = xb.slice_mut(s![..chunk.len(), ..]);
             let mut yb = Vec::with_capacity(chunk.len());
             for (r, &i) in chunk.iter().enumerate() {
                 xb.row_mut(r).assign(&x_train.row(i));
-                yb.push(y_train[i]);
+                yb.push(sets.y_train[i]);
             }
             let loss = net.train_step(&xb.view(), &yb, &opt);
             if !loss.is_finite() {
@@ -286,13 +393,43 @@ pub fn run(opts: &DemoOptions, progress: &Progress) -> Result<DemoSummary> {
     drop(step);
     let early = match early {
         Some(e) => e,
-        None => checkpoint(&net, &x_cap, &centre, &x_test, &y_test),
+        None => take(&net),
     };
-    let fin = checkpoint(&net, &x_cap, &centre, &x_test, &y_test);
+    Ok(Trained {
+        early,
+        fin: take(&net),
+        early_at,
+        total,
+    })
+}
 
-    // frames.tsv, shared by both captures.
+/// Layer widths of the network: input, the hidden layers, one output per phone.
+fn layer_sizes(input: usize) -> Vec<usize> {
+    let mut sizes = vec![input];
+    sizes.extend_from_slice(&HIDDEN);
+    sizes.push(PHONES.len());
+    sizes
+}
+
+/// The optimiser of one epoch: the step size halves over the last third of the epochs
+/// (common practice).
+fn epoch_optimiser(epoch: usize, epochs: usize) -> Adam {
+    let lr = if epoch * 3 >= epochs * 2 {
+        5e-4
+    } else {
+        1.5e-3
+    };
+    Adam {
+        lr,
+        layer_decay: LAYER_DECAY,
+        ..Adam::default()
+    }
+}
+
+/// `frames.tsv`, shared by both captures: one row per captured frame.
+fn frame_table(utts: &[Utterance], talkers: &[Talker], cap_utts: &[usize]) -> String {
     let mut tsv = String::from("utterance\tspeaker\tphone\tgroup\n");
-    for &i in &cap_utts {
+    for &i in cap_utts {
         let u = &utts[i];
         let t = &talkers[u.talker];
         for &p in &u.phones {
@@ -306,78 +443,61 @@ pub fn run(opts: &DemoOptions, progress: &Progress) -> Result<DemoSummary> {
             );
         }
     }
+    tsv
+}
 
-    let n_train_talkers = heldout.iter().filter(|h| !**h).count();
-    let heldout_names: Vec<&str> = talkers
-        .iter()
-        .zip(&heldout)
-        .filter(|(_, h)| **h)
-        .map(|(t, _)| t.name.as_str())
-        .collect();
-    let describe = |ck: &Checkpoint, name: &str, steps: usize| -> String {
-        let mut t = String::new();
-        let _ = writeln!(t, "name = \"demo-{name}\"");
-        let _ = writeln!(t, "hop_s = 0.01");
-        let _ = writeln!(t, "win_s = 0.025");
-        let _ = writeln!(t, "\n[notes]");
-        let _ = writeln!(
-            t,
-            "scenario = \"vowel-and-fricative recogniser for a voice-controlled greenhouse irrigation panel; synthetic speech (source-filter, 16 kHz) from {} talkers: adult and child, male and female\"",
-            talkers.len()
-        );
-        let _ = writeln!(
-            t,
-            "model = \"MLP {}-{}-{} (ReLU), softmax over {} phones (10 vowels, s, sh, f, sil); Adam with layer-wise step decay {LAYER_DECAY} (each layer steps {LAYER_DECAY}x as far as the one above), minibatch {}, seed {}\"",
-            sizes[0],
-            HIDDEN.iter().map(|h| h.to_string()).collect::<Vec<_>>().join("-"),
-            PHONES.len(),
-            PHONES.len(),
-            sc.batch,
-            opts.seed
-        );
-        let _ = writeln!(
-            t,
-            "input = \"40 log-mel channels (25 ms Hamming, 10 ms hop, 512-point FFT magnitude), normalised with training-talker mean and deviation, stacked over +-{CONTEXT} frames\""
-        );
-        let _ = writeln!(t, "layer_0 = \"the centre 40-d normalised log-mel frame of the network input (the stacked input is this frame and its neighbours)\"");
-        let _ = writeln!(
-            t,
-            "layers = \"layer k (1-{}) is hidden layer k after ReLU\"",
-            HIDDEN.len()
-        );
-        let _ = writeln!(t, "checkpoint = \"{name}\"");
-        let _ = writeln!(t, "training_steps = {steps}");
-        let _ = writeln!(t, "total_steps = {total}");
-        let _ = writeln!(t, "training_talkers = {n_train_talkers}");
-        let _ = writeln!(t, "heldout_talkers = \"{}\"", heldout_names.join(" "));
-        let _ = writeln!(t, "heldout_frames = {}", y_test.len());
-        let _ = writeln!(t, "heldout_accuracy = {:.4}", ck.accuracy);
-        t
-    };
+/// The facts both captures' `capture.toml` notes share.
+struct Notes {
+    talkers: usize,
+    input_width: usize,
+    batch: usize,
+    seed: u64,
+    total_steps: usize,
+    training_talkers: usize,
+    heldout_names: String,
+    heldout_frames: usize,
+}
 
-    // Everything is computed; now write.
-    let mut captures = Vec::new();
-    for (name, ck, steps) in [("early", &early, early_at), ("final", &fin, total)] {
-        let dir = opts.out.join(name);
-        for (l, layer) in ck.layers.iter().enumerate() {
-            write_npy_f16(&dir.join(format!("layer_{l:02}.npy")), layer)?;
-        }
-        write_atomic(&dir.join("frames.tsv"), tsv.as_bytes())?;
-        write_atomic(
-            &dir.join("capture.toml"),
-            describe(ck, name, steps).as_bytes(),
-        )?;
-        captures.push(dir);
-    }
-    Ok(DemoSummary {
-        talkers: talkers.len(),
-        heldout_talkers: heldout_names.len(),
-        capture_frames: x_cap.nrows(),
-        train_frames: x_train.nrows(),
-        steps: (early_at, total),
-        heldout_accuracy: (early.accuracy, fin.accuracy),
-        captures,
-    })
+/// The text of one capture's `capture.toml`.
+fn capture_toml(notes: &Notes, ck: &Checkpoint, name: &str, steps: usize) -> String {
+    let mut t = String::new();
+    let _ = writeln!(t, "name = \"demo-{name}\"");
+    let _ = writeln!(t, "hop_s = 0.01");
+    let _ = writeln!(t, "win_s = 0.025");
+    let _ = writeln!(t, "\n[notes]");
+    let _ = writeln!(
+        t,
+        "scenario = \"vowel-and-fricative recogniser for a voice-controlled greenhouse irrigation panel; synthetic speech (source-filter, 16 kHz) from {} talkers: adult and child, male and female\"",
+        notes.talkers
+    );
+    let _ = writeln!(
+        t,
+        "model = \"MLP {}-{}-{} (ReLU), softmax over {} phones (10 vowels, s, sh, f, sil); Adam with layer-wise step decay {LAYER_DECAY} (each layer steps {LAYER_DECAY}x as far as the one above), minibatch {}, seed {}\"",
+        notes.input_width,
+        HIDDEN.iter().map(|h| h.to_string()).collect::<Vec<_>>().join("-"),
+        PHONES.len(),
+        PHONES.len(),
+        notes.batch,
+        notes.seed
+    );
+    let _ = writeln!(
+        t,
+        "input = \"40 log-mel channels (25 ms Hamming, 10 ms hop, 512-point FFT magnitude), normalised with training-talker mean and deviation, stacked over +-{CONTEXT} frames\""
+    );
+    let _ = writeln!(t, "layer_0 = \"the centre 40-d normalised log-mel frame of the network input (the stacked input is this frame and its neighbours)\"");
+    let _ = writeln!(
+        t,
+        "layers = \"layer k (1-{}) is hidden layer k after ReLU\"",
+        HIDDEN.len()
+    );
+    let _ = writeln!(t, "checkpoint = \"{name}\"");
+    let _ = writeln!(t, "training_steps = {steps}");
+    let _ = writeln!(t, "total_steps = {}", notes.total_steps);
+    let _ = writeln!(t, "training_talkers = {}", notes.training_talkers);
+    let _ = writeln!(t, "heldout_talkers = \"{}\"", notes.heldout_names);
+    let _ = writeln!(t, "heldout_frames = {}", notes.heldout_frames);
+    let _ = writeln!(t, "heldout_accuracy = {:.4}", ck.accuracy);
+    t
 }
 
 /// One checkpoint's capture layers (f16 bits, frames × dim) and held-out accuracy.
@@ -458,24 +578,4 @@ fn stacked(normed: &[Array2<f32>], utts: &[Utterance], ids: &[usize]) -> (Array2
         }
     }
     (x, y)
-}
-
-/// Write f16 values as a C-order `.npy` (format 1.0, descr `<f2`; NumPy's NEP 1 layout:
-/// magic, version, little-endian header length, header padded to a multiple of 64 bytes).
-pub fn write_npy_f16(path: &Path, layer: &(usize, usize, Vec<u16>)) -> Result<()> {
-    let (rows, cols, bits) = layer;
-    let mut header =
-        format!("{{'descr': '<f2', 'fortran_order': False, 'shape': ({rows}, {cols}), }}");
-    let pad = 64 - (10 + header.len() + 1) % 64;
-    header.push_str(&" ".repeat(pad % 64));
-    header.push('\n');
-    let mut buf = Vec::with_capacity(10 + header.len() + bits.len() * 2);
-    buf.extend_from_slice(b"\x93NUMPY\x01\x00");
-    buf.extend_from_slice(&(header.len() as u16).to_le_bytes());
-    buf.extend_from_slice(header.as_bytes());
-    for b in bits {
-        buf.extend_from_slice(&b.to_le_bytes());
-    }
-    write_atomic(path, &buf)?;
-    Ok(())
 }

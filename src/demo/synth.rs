@@ -410,7 +410,16 @@ fn interp(keys: &[(f64, [f64; 5])], t: f64) -> [f64; 5] {
 pub fn synthesise(talker: &Talker, segs: &[Segment], rng: &mut ChaCha8Rng) -> Vec<f32> {
     let n = segs.last().map(|s| s.end).unwrap_or(0);
     let ramp = (0.012 * FS) as usize;
-    // Voicing and frication amplitude per sample.
+    let (voice, fric) = amplitudes(segs, n, ramp);
+    let src = glottal_source(talker, &voice, rng);
+    let mut out = formant_cascade(talker, segs, &src);
+    add_fricatives(talker, segs, &fric, ramp, &mut out, rng);
+    finish(talker, &out, rng)
+}
+
+/// Voicing and frication amplitude per sample (`n` samples): each segment's envelope, ramped
+/// over `ramp` samples across its edges.
+fn amplitudes(segs: &[Segment], n: usize, ramp: usize) -> (Vec<f64>, Vec<f64>) {
     let mut voice = vec![0f64; n];
     let mut fric = vec![0f64; n];
     for s in segs {
@@ -428,9 +437,14 @@ pub fn synthesise(talker: &Talker, segs: &[Segment], rng: &mut ChaCha8Rng) -> Ve
             *v = v.max(envelope(i, lo, hi, ramp));
         }
     }
+    (voice, fric)
+}
 
-    // Glottal source: Rosenberg pulses with jitter and shimmer, F0 declining over the
-    // utterance, differentiated for lip radiation, plus aspiration noise while open.
+/// Glottal source: Rosenberg pulses with jitter and shimmer, F0 declining over the
+/// utterance, differentiated for lip radiation, plus aspiration noise while open; scaled by
+/// the voicing amplitude `voice`.
+fn glottal_source(talker: &Talker, voice: &[f64], rng: &mut ChaCha8Rng) -> Vec<f64> {
+    let n = voice.len();
     let utt_f0 = talker.f0 * (1.0 + 0.05 * normal(rng));
     let mut src = vec![0f64; n];
     let mut open = vec![0f64; n];
@@ -468,13 +482,16 @@ pub fn synthesise(talker: &Talker, segs: &[Segment], rng: &mut ChaCha8Rng) -> Ve
         lp = (1.0 - talker.tilt) * (d + asp) + talker.tilt * lp;
         src[i] = lp * voice[i];
     }
+    src
+}
 
-    // Cascade of five formant resonators with tracks updated every millisecond.
+/// Cascade of five formant resonators over `src`, with tracks updated every millisecond.
+fn formant_cascade(talker: &Talker, segs: &[Segment], src: &[f64]) -> Vec<f64> {
     let keys = formant_keys(talker, segs);
     let bws = talker.bandwidths();
     let mut res = [Resonator::default(); 5];
-    let mut out = vec![0f64; n];
-    for i in 0..n {
+    let mut out = vec![0f64; src.len()];
+    for i in 0..src.len() {
         if i % 16 == 0 {
             let f = interp(&keys, i as f64);
             for k in 0..5 {
@@ -487,12 +504,24 @@ pub fn synthesise(talker: &Talker, segs: &[Segment], rng: &mut ChaCha8Rng) -> Ve
         }
         out[i] = y;
     }
+    out
+}
+
+/// Fricatives: white noise through pole pairs placed per place of articulation
+/// (s: high, sh: mid, f: flat and weak; common practice), nudged by the next vowel's F2,
+/// added to `out` at the frication amplitude `fric` relative to the voiced level.
+fn add_fricatives(
+    talker: &Talker,
+    segs: &[Segment],
+    fric: &[f64],
+    ramp: usize,
+    out: &mut [f64],
+    rng: &mut ChaCha8Rng,
+) {
+    let n = out.len();
     let voiced_rms = (out.iter().map(|v| v * v).sum::<f64>() / n.max(1) as f64)
         .sqrt()
         .max(1e-9);
-
-    // Fricatives: white noise through pole pairs placed per place of articulation
-    // (s: high, sh: mid, f: flat and weak; common practice), nudged by the next vowel's F2.
     let fs_scale = talker.fricative_scale();
     for (i, s) in segs.iter().enumerate() {
         if s.phone < FIRST_FRICATIVE {
@@ -529,10 +558,12 @@ pub fn synthesise(talker: &Talker, segs: &[Segment], rng: &mut ChaCha8Rng) -> Ve
             out[j] += level * voiced_rms * 2.5 * fric[j] * y;
         }
     }
+}
 
-    // Loudness normalisation, then the talker's room noise floor, then its channel
-    // colouring (microphone and room), which colours the pauses as well as the speech.
-    let rms = (out.iter().map(|v| v * v).sum::<f64>() / n.max(1) as f64)
+/// Loudness normalisation, then the talker's room noise floor, then its channel colouring
+/// (microphone and room), which colours the pauses as well as the speech.
+fn finish(talker: &Talker, out: &[f64], rng: &mut ChaCha8Rng) -> Vec<f32> {
+    let rms = (out.iter().map(|v| v * v).sum::<f64>() / out.len().max(1) as f64)
         .sqrt()
         .max(1e-12);
     let gain = 0.1 / rms * 10f64.powf(0.15 * normal(rng) / 2.0);

@@ -124,86 +124,14 @@ pub fn make_split(
     }
     // Assign each item a fold (its test fold).
     let fold_of: Vec<usize> = if every {
-        let n_spk = speaker.iter().map(|&s| s as usize + 1).max().unwrap_or(0);
-        let mut utts_of: Vec<Vec<u32>> = vec![Vec::new(); n_spk];
-        for (&u, &s) in utt.iter().zip(speaker) {
-            if !utts_of[s as usize].contains(&u) {
-                utts_of[s as usize].push(u);
-            }
-        }
-        let n_utt = utt.iter().map(|&u| u as usize + 1).max().unwrap_or(0);
-        let mut utt_fold = vec![usize::MAX; n_utt];
-        let mut speakers_seen = 0;
-        for list in utts_of.iter_mut() {
-            if list.is_empty() {
-                continue;
-            }
-            speakers_seen += 1;
-            if list.len() < 2 {
-                return Err("a speaker with a single utterance cannot be on both sides of an utterance split".into());
-            }
-            list.sort_unstable();
-            list.shuffle(&mut rng);
-            if folds == 1 {
-                let m = list.len();
-                let k = ((opts.test_fraction * m as f64).round() as usize).clamp(1, m - 1);
-                for (r, &u) in list.iter().enumerate() {
-                    utt_fold[u as usize] = if r < k { 0 } else { 1 };
-                }
-            } else {
-                let offset = rand::Rng::random_range(&mut rng, 0..folds);
-                for (r, &u) in list.iter().enumerate() {
-                    utt_fold[u as usize] = (offset + r) % folds;
-                }
-            }
-        }
-        if speakers_seen < 2 {
-            return Err(format!(
-                "the speaker task needs at least 2 speakers, found {speakers_seen}"
-            ));
-        }
-        utt.iter().map(|&u| utt_fold[u as usize]).collect()
+        within_speaker_folds(utt, speaker, folds, opts.test_fraction, &mut rng)?
     } else {
         let group: Vec<u32> = match kind {
             SplitKind::Speaker => speaker.to_vec(),
             SplitKind::Utterance => utt.to_vec(),
             _ => (0..n as u32).collect(),
         };
-        let mut ids = group.clone();
-        ids.sort_unstable();
-        ids.dedup();
-        let what = match kind {
-            SplitKind::Speaker => "speakers",
-            SplitKind::Utterance => "utterances",
-            _ => "items",
-        };
-        let need = folds.max(2);
-        if ids.len() < need {
-            let hint = if kind == SplitKind::Speaker {
-                " (use --split utterance to split within speakers)"
-            } else {
-                ""
-            };
-            return Err(format!(
-                "a {}-disjoint split needs at least {need} {what}, found {}{hint}",
-                kind.name(),
-                ids.len()
-            ));
-        }
-        ids.shuffle(&mut rng);
-        let mut gf = std::collections::HashMap::new();
-        if folds == 1 {
-            let m = ids.len();
-            let k = ((opts.test_fraction * m as f64).round() as usize).clamp(1, m - 1);
-            for (r, &g) in ids.iter().enumerate() {
-                gf.insert(g, if r < k { 0 } else { 1 });
-            }
-        } else {
-            for (r, &g) in ids.iter().enumerate() {
-                gf.insert(g, r % folds);
-            }
-        }
-        group.iter().map(|g| gf[g]).collect()
+        group_folds(kind, &group, folds, opts.test_fraction, &mut rng)?
     };
     let out_folds = (0..folds)
         .map(|f| {
@@ -226,6 +154,107 @@ pub fn make_split(
         every_speaker_both_sides: every,
         folds: out_folds,
     })
+}
+
+/// Test fold of each item for the speaker task's utterance split: each speaker's utterances
+/// are shuffled and dealt over the folds (with one fold, the `test_fraction` share of them,
+/// at least one and not all, is the test side), so every speaker is on both sides.
+fn within_speaker_folds(
+    utt: &[u32],
+    speaker: &[u32],
+    folds: usize,
+    test_fraction: f64,
+    rng: &mut ChaCha8Rng,
+) -> Result<Vec<usize>, String> {
+    let n_spk = speaker.iter().map(|&s| s as usize + 1).max().unwrap_or(0);
+    let mut utts_of: Vec<Vec<u32>> = vec![Vec::new(); n_spk];
+    for (&u, &s) in utt.iter().zip(speaker) {
+        if !utts_of[s as usize].contains(&u) {
+            utts_of[s as usize].push(u);
+        }
+    }
+    let n_utt = utt.iter().map(|&u| u as usize + 1).max().unwrap_or(0);
+    let mut utt_fold = vec![usize::MAX; n_utt];
+    let mut speakers_seen = 0;
+    for list in utts_of.iter_mut() {
+        if list.is_empty() {
+            continue;
+        }
+        speakers_seen += 1;
+        if list.len() < 2 {
+            return Err(
+                "a speaker with a single utterance cannot be on both sides of an utterance split"
+                    .into(),
+            );
+        }
+        list.sort_unstable();
+        list.shuffle(rng);
+        if folds == 1 {
+            let m = list.len();
+            let k = ((test_fraction * m as f64).round() as usize).clamp(1, m - 1);
+            for (r, &u) in list.iter().enumerate() {
+                utt_fold[u as usize] = if r < k { 0 } else { 1 };
+            }
+        } else {
+            let offset = rand::Rng::random_range(rng, 0..folds);
+            for (r, &u) in list.iter().enumerate() {
+                utt_fold[u as usize] = (offset + r) % folds;
+            }
+        }
+    }
+    if speakers_seen < 2 {
+        return Err(format!(
+            "the speaker task needs at least 2 speakers, found {speakers_seen}"
+        ));
+    }
+    Ok(utt.iter().map(|&u| utt_fold[u as usize]).collect())
+}
+
+/// Test fold of each item for a group-disjoint split: the distinct groups (speakers,
+/// utterances or items, by `kind`) are shuffled and dealt over the folds (with one fold, the
+/// `test_fraction` share of them is the test side).
+fn group_folds(
+    kind: SplitKind,
+    group: &[u32],
+    folds: usize,
+    test_fraction: f64,
+    rng: &mut ChaCha8Rng,
+) -> Result<Vec<usize>, String> {
+    let mut ids = group.to_vec();
+    ids.sort_unstable();
+    ids.dedup();
+    let what = match kind {
+        SplitKind::Speaker => "speakers",
+        SplitKind::Utterance => "utterances",
+        _ => "items",
+    };
+    let need = folds.max(2);
+    if ids.len() < need {
+        let hint = if kind == SplitKind::Speaker {
+            " (use --split utterance to split within speakers)"
+        } else {
+            ""
+        };
+        return Err(format!(
+            "a {}-disjoint split needs at least {need} {what}, found {}{hint}",
+            kind.name(),
+            ids.len()
+        ));
+    }
+    ids.shuffle(rng);
+    let mut gf = std::collections::HashMap::new();
+    if folds == 1 {
+        let m = ids.len();
+        let k = ((test_fraction * m as f64).round() as usize).clamp(1, m - 1);
+        for (r, &g) in ids.iter().enumerate() {
+            gf.insert(g, if r < k { 0 } else { 1 });
+        }
+    } else {
+        for (r, &g) in ids.iter().enumerate() {
+            gf.insert(g, r % folds);
+        }
+    }
+    Ok(group.iter().map(|g| gf[g]).collect())
 }
 
 /// Result of checking that a split keeps the promise its kind makes.

@@ -210,23 +210,7 @@ pub fn fit(x: &ArrayView2<f32>, k: usize, solver: PcaSolver, seed: u64) -> Pca {
     let mean = crate::analysis::linalg::col_means(x);
     let mean32: Vec<f32> = mean.iter().map(|&m| m as f32).collect();
     let denom = (n.max(2) - 1) as f64;
-    // exact total variance from the data (f64, fixed blocks)
-    let total_var: f64 = x
-        .axis_chunks_iter(Axis(0), 2048)
-        .into_par_iter()
-        .map(|b| {
-            let mut acc = 0f64;
-            for r in b.outer_iter() {
-                for (v, m) in r.iter().zip(&mean) {
-                    acc += (*v as f64 - m).powi(2);
-                }
-            }
-            acc
-        })
-        .collect::<Vec<_>>()
-        .into_iter()
-        .sum::<f64>()
-        / denom;
+    let total_var = total_variance(x, &mean) / denom;
     let solver = match solver {
         PcaSolver::Auto if d <= EXACT_MAX_DIM || k * 2 >= d => PcaSolver::Exact,
         PcaSolver::Auto if d <= COVARIANCE_FACTOR * (k + OVERSAMPLING) => PcaSolver::Covariance,
@@ -234,87 +218,11 @@ pub fn fit(x: &ArrayView2<f32>, k: usize, solver: PcaSolver, seed: u64) -> Pca {
         s => s,
     };
     let (vars, comps): (Vec<f64>, Vec<Vec<f64>>) = match solver {
-        PcaSolver::Exact => {
-            // covariance in f64, fixed row blocks summed in order
-            let parts: Vec<Array2<f64>> = x
-                .axis_chunks_iter(Axis(0), 1024)
-                .into_par_iter()
-                .map(|b| {
-                    let mut c = b.mapv(|v| v as f64);
-                    for mut r in c.outer_iter_mut() {
-                        r.iter_mut().zip(&mean).for_each(|(v, m)| *v -= m);
-                    }
-                    c.t().dot(&c)
-                })
-                .collect();
-            let mut cov = Array2::<f64>::zeros((d, d));
-            for p in parts {
-                cov += &p;
-            }
-            let cols: Vec<Vec<f64>> = cov.axis_iter(Axis(1)).map(|c| c.to_vec()).collect();
-            let (s, u, _) = jacobi_svd(cols);
-            (
-                s.iter().take(k).map(|v| v / denom).collect(),
-                u.into_iter().take(k).collect(),
-            )
-        }
-        PcaSolver::Covariance => {
-            let mut c = x.to_owned();
-            for mut r in c.outer_iter_mut() {
-                r.iter_mut().zip(&mean32).for_each(|(v, m)| *v -= m);
-            }
-            let cov = crate::analysis::linalg::at_b(&c.view(), &c.view());
-            drop(c);
-            let (vals, vecs) = top_eigen_psd(&cov, k, seed);
-            (vals.iter().map(|v| v / denom).collect(), vecs)
-        }
-        _ => {
-            let mut c = x.to_owned();
-            for mut r in c.outer_iter_mut() {
-                r.iter_mut().zip(&mean32).for_each(|(v, m)| *v -= m);
-            }
-            let l = (k + OVERSAMPLING).min(d).min(n);
-            let mut rng = ChaCha8Rng::seed_from_u64(seed);
-            // Gaussian test matrix by Box-Muller
-            let omega = Array2::from_shape_fn((d, l), |_| {
-                let u1: f64 = rng.random::<f64>().max(1e-300);
-                let u2: f64 = rng.random::<f64>();
-                ((-2.0 * u1.ln()).sqrt() * (std::f64::consts::TAU * u2).cos()) as f32
-            });
-            let cv = c.view();
-            let mut y = crate::analysis::linalg::matmul(&cv, &omega.view());
-            for _ in 0..POWER_ITERATIONS {
-                let mut q = to_cols(&y.view());
-                orthonormalise(&mut q);
-                let qf = from_cols(&q);
-                let z = crate::analysis::linalg::at_b(&cv, &qf.view()).mapv(|v| v as f32);
-                let mut zc = to_cols(&z.view());
-                orthonormalise(&mut zc);
-                y = crate::analysis::linalg::matmul(&cv, &from_cols(&zc).view());
-            }
-            let mut q = to_cols(&y.view());
-            orthonormalise(&mut q);
-            // Bᵀ = Aᵀ Q (dim × l); its left singular vectors are the components
-            let bt = crate::analysis::linalg::at_b(&cv, &from_cols(&q).view());
-            let cols: Vec<Vec<f64>> = bt.axis_iter(Axis(1)).map(|c| c.to_vec()).collect();
-            let (s, u, _) = jacobi_svd(cols);
-            (
-                s.iter().take(k).map(|v| v * v / denom).collect(),
-                u.into_iter().take(k).collect(),
-            )
-        }
+        PcaSolver::Exact => exact_components(x, &mean, k, denom),
+        PcaSolver::Covariance => covariance_components(x, &mean32, k, seed, denom),
+        _ => randomized_components(x, &mean32, k, seed, denom),
     };
-    let mut components = Array2::<f64>::zeros((k, d));
-    for (i, c) in comps.iter().enumerate() {
-        let big = c
-            .iter()
-            .cloned()
-            .fold(0f64, |a, v| if v.abs() > a.abs() { v } else { a });
-        let sign = if big < 0.0 { -1.0 } else { 1.0 };
-        for (j, &v) in c.iter().enumerate() {
-            components[[i, j]] = sign * v;
-        }
-    }
+    let components = sign_fixed(&comps, k, d);
     let explained_variance_ratio = vars
         .iter()
         .map(|v| if total_var > 0.0 { v / total_var } else { 0.0 })
@@ -326,6 +234,140 @@ pub fn fit(x: &ArrayView2<f32>, k: usize, solver: PcaSolver, seed: u64) -> Pca {
         explained_variance_ratio,
         solver,
     }
+}
+
+/// Sum of squared deviations from `mean`, exact from the data (f64, fixed blocks summed in
+/// order).
+fn total_variance(x: &ArrayView2<f32>, mean: &[f64]) -> f64 {
+    x.axis_chunks_iter(Axis(0), 2048)
+        .into_par_iter()
+        .map(|b| {
+            let mut acc = 0f64;
+            for r in b.outer_iter() {
+                for (v, m) in r.iter().zip(mean) {
+                    acc += (*v as f64 - m).powi(2);
+                }
+            }
+            acc
+        })
+        .collect::<Vec<_>>()
+        .into_iter()
+        .sum::<f64>()
+}
+
+/// `x` minus the column means, in f32.
+fn centred(x: &ArrayView2<f32>, mean32: &[f32]) -> Array2<f32> {
+    let mut c = x.to_owned();
+    for mut r in c.outer_iter_mut() {
+        r.iter_mut().zip(mean32).for_each(|(v, m)| *v -= m);
+    }
+    c
+}
+
+/// Exact solver: the f64 covariance (fixed row blocks summed in order) and its Jacobi SVD;
+/// the top `k` variances and components.
+fn exact_components(
+    x: &ArrayView2<f32>,
+    mean: &[f64],
+    k: usize,
+    denom: f64,
+) -> (Vec<f64>, Vec<Vec<f64>>) {
+    let d = x.ncols();
+    let parts: Vec<Array2<f64>> = x
+        .axis_chunks_iter(Axis(0), 1024)
+        .into_par_iter()
+        .map(|b| {
+            let mut c = b.mapv(|v| v as f64);
+            for mut r in c.outer_iter_mut() {
+                r.iter_mut().zip(mean).for_each(|(v, m)| *v -= m);
+            }
+            c.t().dot(&c)
+        })
+        .collect();
+    let mut cov = Array2::<f64>::zeros((d, d));
+    for p in parts {
+        cov += &p;
+    }
+    let cols: Vec<Vec<f64>> = cov.axis_iter(Axis(1)).map(|c| c.to_vec()).collect();
+    let (s, u, _) = jacobi_svd(cols);
+    (
+        s.iter().take(k).map(|v| v / denom).collect(),
+        u.into_iter().take(k).collect(),
+    )
+}
+
+/// Covariance solver: f32 products, then subspace iteration for the top `k` eigenpairs.
+fn covariance_components(
+    x: &ArrayView2<f32>,
+    mean32: &[f32],
+    k: usize,
+    seed: u64,
+    denom: f64,
+) -> (Vec<f64>, Vec<Vec<f64>>) {
+    let c = centred(x, mean32);
+    let cov = crate::analysis::linalg::at_b(&c.view(), &c.view());
+    drop(c);
+    let (vals, vecs) = top_eigen_psd(&cov, k, seed);
+    (vals.iter().map(|v| v / denom).collect(), vecs)
+}
+
+/// Randomized SVD (Halko et al. 2011): a Gaussian sketch with `OVERSAMPLING` extra columns,
+/// `POWER_ITERATIONS` power iterations, then the SVD of the small projected matrix.
+fn randomized_components(
+    x: &ArrayView2<f32>,
+    mean32: &[f32],
+    k: usize,
+    seed: u64,
+    denom: f64,
+) -> (Vec<f64>, Vec<Vec<f64>>) {
+    let (n, d) = x.dim();
+    let c = centred(x, mean32);
+    let l = (k + OVERSAMPLING).min(d).min(n);
+    let mut rng = ChaCha8Rng::seed_from_u64(seed);
+    // Gaussian test matrix by Box-Muller
+    let omega = Array2::from_shape_fn((d, l), |_| {
+        let u1: f64 = rng.random::<f64>().max(1e-300);
+        let u2: f64 = rng.random::<f64>();
+        ((-2.0 * u1.ln()).sqrt() * (std::f64::consts::TAU * u2).cos()) as f32
+    });
+    let cv = c.view();
+    let mut y = crate::analysis::linalg::matmul(&cv, &omega.view());
+    for _ in 0..POWER_ITERATIONS {
+        let mut q = to_cols(&y.view());
+        orthonormalise(&mut q);
+        let qf = from_cols(&q);
+        let z = crate::analysis::linalg::at_b(&cv, &qf.view()).mapv(|v| v as f32);
+        let mut zc = to_cols(&z.view());
+        orthonormalise(&mut zc);
+        y = crate::analysis::linalg::matmul(&cv, &from_cols(&zc).view());
+    }
+    let mut q = to_cols(&y.view());
+    orthonormalise(&mut q);
+    // Bᵀ = Aᵀ Q (dim × l); its left singular vectors are the components
+    let bt = crate::analysis::linalg::at_b(&cv, &from_cols(&q).view());
+    let cols: Vec<Vec<f64>> = bt.axis_iter(Axis(1)).map(|c| c.to_vec()).collect();
+    let (s, u, _) = jacobi_svd(cols);
+    (
+        s.iter().take(k).map(|v| v * v / denom).collect(),
+        u.into_iter().take(k).collect(),
+    )
+}
+
+/// The components as rows (k × d), each signed so that its largest-magnitude entry is
+/// positive.
+fn sign_fixed(comps: &[Vec<f64>], k: usize, d: usize) -> Array2<f64> {
+    let mut components = Array2::<f64>::zeros((k, d));
+    for (i, c) in comps.iter().enumerate() {
+        let big = c
+            .iter()
+            .cloned()
+            .fold(0f64, |a, v| if v.abs() > a.abs() { v } else { a });
+        let sign = if big < 0.0 { -1.0 } else { 1.0 };
+        for (j, &v) in c.iter().enumerate() {
+            components[[i, j]] = sign * v;
+        }
+    }
+    components
 }
 
 impl Pca {

@@ -293,15 +293,63 @@ impl FftGrid {
     fn repulsion(&mut self, y: &[[f64; 2]], rep: &mut [[f64; 2]]) -> f64 {
         let n = y.len();
         let p = self.nodes;
+        let grid = self.layout(y);
+        let (m, big) = (grid.m, grid.big);
+        let interp = grid.interpolation(y);
+        // two complex grids: (1 + i·y1) and (y2 + i·‖y‖²); the kernel is real and even, so
+        // real and imaginary parts convolve independently. The grids are f32 (twice the FFT
+        // speed); charges are spread and potentials gathered in f64. Coordinates are centred
+        // (|y| up to ~100), so the ‖y‖² cancellation in Z costs at most ~1e-3 relative, below
+        // the interpolation error.
+        let mut g1 = std::mem::take(&mut self.g1);
+        let mut g2 = std::mem::take(&mut self.g2);
+        let mut tmp = std::mem::take(&mut self.tmp);
+        for g in [&mut g1, &mut g2, &mut tmp] {
+            if g.len() != big * big {
+                // every element the transforms read is written below, so a grid of the right
+                // size is reused without clearing
+                g.clear();
+                g.resize(big * big, Complex32::new(0.0, 0.0));
+            }
+        }
+        self.spread_charges(y, &interp, m, big, &mut g1, &mut g2);
+        let (fwd, inv) = self.plans(big);
+        let key = (big, grid.spacing.to_bits());
+        let ker = match &self.kernel {
+            Some((k, v)) if *k == key => v,
+            _ => {
+                &self
+                    .kernel
+                    .insert((key, kernel_hat(big, m, grid.spacing, &fwd)))
+                    .1
+            }
+        };
+        let scale = 1.0 / (big * big) as f32;
+        for g in [&mut g1, &mut g2] {
+            fft2(g, &mut tmp, big, m, &fwd);
+            g.par_iter_mut()
+                .zip(ker.par_iter())
+                .for_each(|(g, k)| *g *= k * scale);
+            ifft2(g, &mut tmp, big, m, &inv);
+        }
+        let terms = gather_potentials(y, &interp, p, big, &g1, &g2, rep);
+        self.g1 = g1;
+        self.g2 = g2;
+        self.tmp = tmp;
+        terms.iter().sum::<f64>() - n as f64
+    }
+
+    /// The grid over the map `y`: boxes of width 1 (FIt-SNE's one interval per unit) once the
+    /// map is wider than `min_boxes` units, so the kernel's transform can be reused between
+    /// iterations; narrower maps get `min_boxes` boxes.
+    fn layout(&self, y: &[[f64; 2]]) -> GridLayout {
+        let p = self.nodes;
         let (mut lo, mut hi) = (f64::INFINITY, f64::NEG_INFINITY);
         for v in y {
             lo = lo.min(v[0]).min(v[1]);
             hi = hi.max(v[0]).max(v[1]);
         }
         let range = (hi - lo).max(1e-12);
-        // boxes of width 1 (FIt-SNE's one interval per unit) once the map is wider than
-        // min_boxes units, so the kernel's transform can be reused between iterations;
-        // narrower maps get min_boxes boxes
         let want = (range.ceil() as usize + 1).max(self.min_boxes);
         let mut nb = want;
         while nice_size(2 * nb * p) != 2 * nb * p {
@@ -314,8 +362,82 @@ impl FftGrid {
         };
         let lo = lo - (nb as f64 * bw - range) / 2.0;
         let m = nb * p; // nodes per axis
-        let big = 2 * m; // circulant embedding
-        let spacing = bw / p as f64;
+        GridLayout {
+            lo,
+            bw,
+            nb,
+            p,
+            m,
+            big: 2 * m, // circulant embedding
+            spacing: bw / p as f64,
+        }
+    }
+
+    /// Spread the charges (1, y1, y2, ‖y‖²) onto the nodes in f64 on the m × m block (the
+    /// rest is zero padding), then round once into the grids `g1`, `g2`; rows at and beyond
+    /// m are never read by the forward transform.
+    fn spread_charges(
+        &mut self,
+        y: &[[f64; 2]],
+        interp: &[Interp],
+        m: usize,
+        big: usize,
+        g1: &mut [Complex32],
+        g2: &mut [Complex32],
+    ) {
+        let p = self.nodes;
+        let mut s = std::mem::take(&mut self.spread);
+        s.clear();
+        s.resize(m * m, [0f64; 4]);
+        for (v, (bx, wx, by, wy)) in y.iter().zip(interp) {
+            let q = [1.0, v[0], v[1], v[0] * v[0] + v[1] * v[1]];
+            for (a, &lx) in wx[..p].iter().enumerate() {
+                let gx = bx * p + a;
+                for (b, &ly) in wy[..p].iter().enumerate() {
+                    let c = &mut s[gx * m + by * p + b];
+                    let w = lx * ly;
+                    for (cq, qq) in c.iter_mut().zip(q) {
+                        *cq += w * qq;
+                    }
+                }
+            }
+        }
+        let zero = Complex32::new(0.0, 0.0);
+        for (r, srow) in s.chunks_exact(m).enumerate() {
+            let (r1, r2) = (
+                &mut g1[r * big..(r + 1) * big],
+                &mut g2[r * big..(r + 1) * big],
+            );
+            for ((a, b), v) in r1.iter_mut().zip(r2.iter_mut()).zip(srow) {
+                *a = Complex32::new(v[0] as f32, v[1] as f32);
+                *b = Complex32::new(v[2] as f32, v[3] as f32);
+            }
+            r1[m..].fill(zero);
+            r2[m..].fill(zero);
+        }
+        self.spread = s;
+    }
+}
+
+/// Box and Lagrange weights of a point on each axis: (box x, weights x, box y, weights y).
+type Interp = (usize, [f64; MAX_NODES], usize, [f64; MAX_NODES]);
+
+/// Where the interpolation grid lies: `nb` boxes of width `bw` from `lo` on each axis, `p`
+/// nodes per box (`m` nodes per axis), FFT size `big`, node spacing `spacing`.
+struct GridLayout {
+    lo: f64,
+    bw: f64,
+    nb: usize,
+    p: usize,
+    m: usize,
+    big: usize,
+    spacing: f64,
+}
+
+impl GridLayout {
+    /// Box and Lagrange interpolation weights of every point of `y`.
+    fn interpolation(&self, y: &[[f64; 2]]) -> Vec<Interp> {
+        let (lo, bw, nb, p) = (self.lo, self.bw, self.nb, self.p);
         // local node positions in [0, 1] and Lagrange denominators
         let tn: Vec<f64> = (0..p).map(|i| (i as f64 + 0.5) / p as f64).collect();
         let denom: Vec<f64> = (0..p)
@@ -337,112 +459,48 @@ impl FftGrid {
             }
             (b, w)
         };
-        type Interp = (usize, [f64; MAX_NODES], usize, [f64; MAX_NODES]);
-        let interp: Vec<Interp> = y
-            .par_iter()
+        y.par_iter()
             .map(|v| {
                 let (bx, wx) = weights(v[0]);
                 let (by, wy) = weights(v[1]);
                 (bx, wx, by, wy)
             })
-            .collect();
-        // two complex grids: (1 + i·y1) and (y2 + i·‖y‖²); the kernel is real and even, so
-        // real and imaginary parts convolve independently. The grids are f32 (twice the FFT
-        // speed); charges are spread and potentials gathered in f64. Coordinates are centred
-        // (|y| up to ~100), so the ‖y‖² cancellation in Z costs at most ~1e-3 relative, below
-        // the interpolation error.
-        let mut g1 = std::mem::take(&mut self.g1);
-        let mut g2 = std::mem::take(&mut self.g2);
-        let mut tmp = std::mem::take(&mut self.tmp);
-        for g in [&mut g1, &mut g2, &mut tmp] {
-            if g.len() != big * big {
-                // every element the transforms read is written below, so a grid of the right
-                // size is reused without clearing
-                g.clear();
-                g.resize(big * big, Complex32::new(0.0, 0.0));
-            }
-        }
-        {
-            // spread in f64 on the m × m block of nodes (the rest is zero padding), then round
-            // once; rows at and beyond m are never read by the forward transform
-            let mut s = std::mem::take(&mut self.spread);
-            s.clear();
-            s.resize(m * m, [0f64; 4]);
-            for (v, (bx, wx, by, wy)) in y.iter().zip(&interp) {
-                let q = [1.0, v[0], v[1], v[0] * v[0] + v[1] * v[1]];
-                for (a, &lx) in wx[..p].iter().enumerate() {
-                    let gx = bx * p + a;
-                    for (b, &ly) in wy[..p].iter().enumerate() {
-                        let c = &mut s[gx * m + by * p + b];
-                        let w = lx * ly;
-                        for (cq, qq) in c.iter_mut().zip(q) {
-                            *cq += w * qq;
-                        }
-                    }
-                }
-            }
-            let zero = Complex32::new(0.0, 0.0);
-            for (r, srow) in s.chunks_exact(m).enumerate() {
-                let (r1, r2) = (
-                    &mut g1[r * big..(r + 1) * big],
-                    &mut g2[r * big..(r + 1) * big],
-                );
-                for ((a, b), v) in r1.iter_mut().zip(r2.iter_mut()).zip(srow) {
-                    *a = Complex32::new(v[0] as f32, v[1] as f32);
-                    *b = Complex32::new(v[2] as f32, v[3] as f32);
-                }
-                r1[m..].fill(zero);
-                r2[m..].fill(zero);
-            }
-            self.spread = s;
-        }
-        let (fwd, inv) = self.plans(big);
-        let key = (big, spacing.to_bits());
-        let ker = match &self.kernel {
-            Some((k, v)) if *k == key => v,
-            _ => {
-                &self
-                    .kernel
-                    .insert((key, kernel_hat(big, m, spacing, &fwd)))
-                    .1
-            }
-        };
-        let scale = 1.0 / (big * big) as f32;
-        for g in [&mut g1, &mut g2] {
-            fft2(g, &mut tmp, big, m, &fwd);
-            g.par_iter_mut()
-                .zip(ker.par_iter())
-                .for_each(|(g, k)| *g *= k * scale);
-            ifft2(g, &mut tmp, big, m, &inv);
-        }
-        // gather potentials at the points
-        let terms: Vec<f64> = rep
-            .par_iter_mut()
-            .zip(y.par_iter().zip(interp.par_iter()))
-            .map(|(r, (v, (bx, wx, by, wy)))| {
-                let mut phi = [0f64; 4];
-                for (a, &lx) in wx[..p].iter().enumerate() {
-                    let gx = bx * p + a;
-                    for (b, &ly) in wy[..p].iter().enumerate() {
-                        let idx = gx * big + by * p + b;
-                        let w = lx * ly;
-                        phi[0] += w * g1[idx].re as f64;
-                        phi[1] += w * g1[idx].im as f64;
-                        phi[2] += w * g2[idx].re as f64;
-                        phi[3] += w * g2[idx].im as f64;
-                    }
-                }
-                r[0] = v[0] * phi[0] - phi[1];
-                r[1] = v[1] * phi[0] - phi[2];
-                (1.0 + v[0] * v[0] + v[1] * v[1]) * phi[0] - 2.0 * (v[0] * phi[1] + v[1] * phi[2])
-                    + phi[3]
-            })
-            .collect();
-        self.g1 = g1;
-        self.g2 = g2;
-        self.tmp = tmp;
-        terms.iter().sum::<f64>() - n as f64
+            .collect()
     }
+}
+
+/// Gather the convolved potentials at the points: repulsive forces into `rep`, and each
+/// point's term of Z.
+fn gather_potentials(
+    y: &[[f64; 2]],
+    interp: &[Interp],
+    p: usize,
+    big: usize,
+    g1: &[Complex32],
+    g2: &[Complex32],
+    rep: &mut [[f64; 2]],
+) -> Vec<f64> {
+    rep.par_iter_mut()
+        .zip(y.par_iter().zip(interp.par_iter()))
+        .map(|(r, (v, (bx, wx, by, wy)))| {
+            let mut phi = [0f64; 4];
+            for (a, &lx) in wx[..p].iter().enumerate() {
+                let gx = bx * p + a;
+                for (b, &ly) in wy[..p].iter().enumerate() {
+                    let idx = gx * big + by * p + b;
+                    let w = lx * ly;
+                    phi[0] += w * g1[idx].re as f64;
+                    phi[1] += w * g1[idx].im as f64;
+                    phi[2] += w * g2[idx].re as f64;
+                    phi[3] += w * g2[idx].im as f64;
+                }
+            }
+            r[0] = v[0] * phi[0] - phi[1];
+            r[1] = v[1] * phi[0] - phi[2];
+            (1.0 + v[0] * v[0] + v[1] * v[1]) * phi[0] - 2.0 * (v[0] * phi[1] + v[1] * phi[2])
+                + phi[3]
+        })
+        .collect()
 }
 
 /// Transform (real: the kernel is even) of the kernel `1/(1+d²)²` on the circulant grid.
