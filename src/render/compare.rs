@@ -135,6 +135,30 @@ impl super::Figure for CkaHeatmap {
             .axis_desc_style(text(14.0))
             .draw()
             .map_err(e2s)?;
+        self.draw_cells(&mut chart)?;
+        let xt: Vec<(f64, String)> = centre_ticks(nb, label_step(nb))
+            .into_iter()
+            .map(|v| (v, lb[v as usize].to_string()))
+            .collect();
+        // Row 0 (first A layer) is drawn at the top.
+        let yt: Vec<(f64, String)> = (0..na)
+            .step_by(label_step(na))
+            .map(|k| ((na - 1 - k) as f64 + 0.5, la[k].to_string()))
+            .collect();
+        draw_cell_ticks(&main, &chart, &xt, true)?;
+        draw_cell_ticks(&main, &chart, &yt, false)?;
+        draw_colour_bar(&bar)
+    }
+}
+
+impl CkaHeatmap {
+    /// One coloured cell per layer pair, with its value written in when the grid is small
+    /// enough to read it. Row 0 (the first layer of A) is at the top.
+    fn draw_cells<DB: DrawingBackend>(
+        &self,
+        chart: &mut ChartContext<DB, Cartesian2d<RangedCoordf64, RangedCoordf64>>,
+    ) -> Result<(), String> {
+        let (na, nb) = (self.layers_a.len(), self.layers_b.len());
         let show_text = na <= super::compare::CELL_TEXT_MAX_LAYERS && nb <= CELL_TEXT_MAX_LAYERS;
         let fs = (self.cell() as f64 * 0.32).clamp(9.0, 13.0);
         for (i, row) in self.values.iter().enumerate() {
@@ -169,18 +193,7 @@ impl super::Figure for CkaHeatmap {
                 }
             }
         }
-        let xt: Vec<(f64, String)> = centre_ticks(nb, label_step(nb))
-            .into_iter()
-            .map(|v| (v, lb[v as usize].to_string()))
-            .collect();
-        // Row 0 (first A layer) is drawn at the top.
-        let yt: Vec<(f64, String)> = (0..na)
-            .step_by(label_step(na))
-            .map(|k| ((na - 1 - k) as f64 + 0.5, la[k].to_string()))
-            .collect();
-        draw_cell_ticks(&main, &chart, &xt, true)?;
-        draw_cell_ticks(&main, &chart, &yt, false)?;
-        draw_colour_bar(&bar)
+        Ok(())
     }
 }
 

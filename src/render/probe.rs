@@ -2,6 +2,7 @@
 //! band, majority baseline dashed and control task dotted in the task's colour), and a
 //! row-normalised confusion heatmap per task at its best layer.
 
+use plotters::coord::types::RangedCoordf64;
 use plotters::coord::Shift;
 use plotters::prelude::*;
 use plotters::style::text_anchor::{HPos, Pos, VPos};
@@ -80,7 +81,6 @@ impl super::Figure for LayerCurves {
         let n_layers = (x1 - x0).round() as usize + 1;
         let (w, _) = self.size();
         let (plot_area, legend_area) = area.split_horizontally(w as i32 - 300);
-        let legend = &legend_area;
         let mut chart = ChartBuilder::on(&plot_area)
             .caption(&self.title, text(20.0))
             .margin(14)
@@ -110,100 +110,121 @@ impl super::Figure for LayerCurves {
             .map_err(e2s)?;
         let colours = category_colours(self.tasks.len().max(2));
         for (t, &col) in self.tasks.iter().zip(&colours) {
-            let mut band: Vec<(f64, f64)> =
-                t.layers.iter().zip(&t.hi).map(|(&x, &y)| (x, y)).collect();
-            band.extend(t.layers.iter().zip(&t.lo).rev().map(|(&x, &y)| (x, y)));
-            chart
-                .draw_series(std::iter::once(Polygon::new(band, col.mix(0.22).filled())))
-                .map_err(e2s)?;
-            let pts = |v: &[f64]| -> Vec<(f64, f64)> {
-                t.layers
-                    .iter()
-                    .zip(v)
-                    .filter(|(_, y)| y.is_finite())
-                    .map(|(&x, &y)| (x, y))
-                    .collect()
-            };
-            chart
-                .draw_series(DashedLineSeries::new(
-                    pts(&t.majority),
-                    9,
-                    6,
-                    col.stroke_width(2),
-                ))
-                .map_err(e2s)?;
-            chart
-                .draw_series(DashedLineSeries::new(
-                    pts(&t.control),
-                    2,
-                    5,
-                    col.stroke_width(3),
-                ))
-                .map_err(e2s)?;
-            chart
-                .draw_series(LineSeries::new(pts(&t.acc), col.stroke_width(3)).point_size(4))
-                .map_err(e2s)?;
+            draw_task(&mut chart, t, col)?;
         }
-        // Legend beside the chart, so it never hides a curve.
-        let grey = RGBColor(90, 90, 90);
-        let x0 = 10i32;
-        let mut y = 70i32;
-        let line = |ar: &DrawingArea<DB, Shift>,
-                    y: i32,
-                    style: ShapeStyle,
-                    dash: i32,
-                    gap: i32|
-         -> Result<(), String> {
-            let mut x = x0;
-            while x < x0 + 28 {
-                let e = (x + dash).min(x0 + 28);
-                ar.draw(&PathElement::new(vec![(x, y), (e, y)], style))
-                    .map_err(e2s)?;
-                x += dash + gap;
-            }
-            Ok(())
-        };
-        for (t, &col) in self.tasks.iter().zip(&colours) {
-            line(legend, y, col.stroke_width(3), 28, 0)?;
-            legend
-                .draw(&Text::new(
-                    t.name.clone(),
-                    (x0 + 36, y),
-                    text(13.0).pos(Pos::new(HPos::Left, VPos::Center)),
-                ))
-                .map_err(e2s)?;
-            y += 24;
-        }
-        y += 8;
-        for (label, dash, gap, wdt) in [
-            ("majority baseline (dashed)", 9, 6, 2),
-            ("control task (dotted)", 2, 5, 3),
-        ] {
-            line(legend, y, grey.stroke_width(wdt), dash, gap)?;
-            legend
-                .draw(&Text::new(
-                    label,
-                    (x0 + 36, y),
-                    text(13.0).pos(Pos::new(HPos::Left, VPos::Center)),
-                ))
-                .map_err(e2s)?;
-            y += 24;
-        }
-        legend
-            .draw(&Rectangle::new(
-                [(x0, y - 7), (x0 + 28, y + 7)],
-                grey.mix(0.25).filled(),
-            ))
+        draw_legend(&legend_area, &self.tasks, &colours)
+    }
+}
+
+/// One task's interval band, majority baseline (dashed), control task (dotted) and accuracy.
+fn draw_task<DB: DrawingBackend>(
+    chart: &mut ChartContext<DB, Cartesian2d<RangedCoordf64, RangedCoordf64>>,
+    t: &TaskCurves,
+    col: RGBColor,
+) -> Result<(), String> {
+    let mut band: Vec<(f64, f64)> = t.layers.iter().zip(&t.hi).map(|(&x, &y)| (x, y)).collect();
+    band.extend(t.layers.iter().zip(&t.lo).rev().map(|(&x, &y)| (x, y)));
+    chart
+        .draw_series(std::iter::once(Polygon::new(band, col.mix(0.22).filled())))
+        .map_err(e2s)?;
+    let pts = |v: &[f64]| -> Vec<(f64, f64)> {
+        t.layers
+            .iter()
+            .zip(v)
+            .filter(|(_, y)| y.is_finite())
+            .map(|(&x, &y)| (x, y))
+            .collect()
+    };
+    chart
+        .draw_series(DashedLineSeries::new(
+            pts(&t.majority),
+            9,
+            6,
+            col.stroke_width(2),
+        ))
+        .map_err(e2s)?;
+    chart
+        .draw_series(DashedLineSeries::new(
+            pts(&t.control),
+            2,
+            5,
+            col.stroke_width(3),
+        ))
+        .map_err(e2s)?;
+    chart
+        .draw_series(LineSeries::new(pts(&t.acc), col.stroke_width(3)).point_size(4))
+        .map_err(e2s)?;
+    Ok(())
+}
+
+/// A legend line sample 28 px long from `x0`, dashed with `dash` px on and `gap` px off.
+fn legend_line<DB: DrawingBackend>(
+    ar: &DrawingArea<DB, Shift>,
+    x0: i32,
+    y: i32,
+    style: ShapeStyle,
+    dash: i32,
+    gap: i32,
+) -> Result<(), String> {
+    let mut x = x0;
+    while x < x0 + 28 {
+        let e = (x + dash).min(x0 + 28);
+        ar.draw(&PathElement::new(vec![(x, y), (e, y)], style))
             .map_err(e2s)?;
+        x += dash + gap;
+    }
+    Ok(())
+}
+
+/// Legend beside the chart, so it never hides a curve.
+fn draw_legend<DB: DrawingBackend>(
+    legend: &DrawingArea<DB, Shift>,
+    tasks: &[TaskCurves],
+    colours: &[RGBColor],
+) -> Result<(), String> {
+    let grey = RGBColor(90, 90, 90);
+    let x0 = 10i32;
+    let mut y = 70i32;
+    for (t, &col) in tasks.iter().zip(colours) {
+        legend_line(legend, x0, y, col.stroke_width(3), 28, 0)?;
         legend
             .draw(&Text::new(
-                "95% bootstrap interval",
+                t.name.clone(),
                 (x0 + 36, y),
                 text(13.0).pos(Pos::new(HPos::Left, VPos::Center)),
             ))
             .map_err(e2s)?;
-        Ok(())
+        y += 24;
     }
+    y += 8;
+    for (label, dash, gap, wdt) in [
+        ("majority baseline (dashed)", 9, 6, 2),
+        ("control task (dotted)", 2, 5, 3),
+    ] {
+        legend_line(legend, x0, y, grey.stroke_width(wdt), dash, gap)?;
+        legend
+            .draw(&Text::new(
+                label,
+                (x0 + 36, y),
+                text(13.0).pos(Pos::new(HPos::Left, VPos::Center)),
+            ))
+            .map_err(e2s)?;
+        y += 24;
+    }
+    legend
+        .draw(&Rectangle::new(
+            [(x0, y - 7), (x0 + 28, y + 7)],
+            grey.mix(0.25).filled(),
+        ))
+        .map_err(e2s)?;
+    legend
+        .draw(&Text::new(
+            "95% bootstrap interval",
+            (x0 + 36, y),
+            text(13.0).pos(Pos::new(HPos::Left, VPos::Center)),
+        ))
+        .map_err(e2s)?;
+    Ok(())
 }
 
 /// Row-normalised confusion matrix of one task at its best layer.

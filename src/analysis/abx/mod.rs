@@ -24,7 +24,7 @@ pub mod items;
 
 use std::collections::BTreeMap;
 
-use ndarray::{s, ArrayView2};
+use ndarray::{s, Array2, ArrayView2};
 use rayon::prelude::*;
 
 use crate::capture::{Capture, CaptureError};
@@ -175,9 +175,43 @@ pub fn layer_records(
             frame: rows[r],
         });
     }
-    // unit-normalised f32 frames; zero frames flagged
+    let (xn, zero) = unit_rows(x);
+    let zero_frames = zero.iter().filter(|&&z| z).count();
+    let dist = pair_distances(items, &xn, &zero);
+    let (within, across) = cell_scores(items, &dist);
+    let mut records = Vec::new();
+    for (condition, acc, n) in [
+        ("within", within.0, within.1),
+        ("across", across.0, across.1),
+    ] {
+        if acc.is_empty() {
+            continue;
+        }
+        let mut sum = 0.0;
+        for by_speakers in acc.values() {
+            let s: f64 = by_speakers.values().map(|&(t, c)| t / c as f64).sum();
+            sum += s / by_speakers.len() as f64;
+        }
+        let score = sum / acc.len() as f64;
+        records.push(AbxRecord {
+            layer,
+            label: items.label.clone(),
+            condition: condition.into(),
+            error_rate: 1.0 - score,
+            n_pairs: acc.len(),
+            n_triplets: n,
+        });
+    }
+    Ok(LayerAbx {
+        records,
+        zero_frames,
+    })
+}
+
+/// Frames scaled to unit length, and which frames are all zero (left as they are).
+fn unit_rows(x: ArrayView2<f32>) -> (Array2<f32>, Vec<bool>) {
     let mut xn = x.to_owned();
-    let mut zero = vec![false; rows.len()];
+    let mut zero = vec![false; xn.nrows()];
     for (mut row, z) in xn.outer_iter_mut().zip(zero.iter_mut()) {
         let norm = row
             .iter()
@@ -190,9 +224,13 @@ pub fn layer_records(
             row.mapv_inplace(|v| (v as f64 / norm) as f32);
         }
     }
-    let zero_frames = zero.iter().filter(|&&z| z).count();
+    (xn, zero)
+}
+
+/// DTW distance of every indexed item pair (i < j), both ways round: (d(i, j), d(j, i)).
+fn pair_distances(items: &AbxItems, xn: &Array2<f32>, zero: &[bool]) -> Vec<(f64, f64)> {
     let off = &items.offsets;
-    let dist: Vec<(f64, f64)> = items
+    items
         .pairs
         .par_iter()
         .map(|&(i, j)| {
@@ -207,7 +245,14 @@ pub fn layer_records(
             let r = dtw::dtw(c.view());
             (r.distance(), r.distance_transposed())
         })
-        .collect();
+        .collect()
+}
+
+/// (a, b) -> (s, t) -> (sum of cell means, cells); t = s within speaker.
+type Acc = BTreeMap<(u32, u32), BTreeMap<(u32, u32), (f64, usize)>>;
+
+/// Triplet scores per cell, gathered within and across speaker, each with its triplet count.
+fn cell_scores(items: &AbxItems, dist: &[(f64, f64)]) -> ((Acc, u64), (Acc, u64)) {
     // d(p, x): DTW with p's frames as rows and x's as columns
     let d = |p: u32, x: u32| -> f64 {
         let k = (p.min(x), p.max(x));
@@ -218,8 +263,6 @@ pub fn layer_records(
             v.1
         }
     };
-    // (a, b) -> (s, t) -> (sum of cell means, cells); t = s within speaker
-    type Acc = BTreeMap<(u32, u32), BTreeMap<(u32, u32), (f64, usize)>>;
     let (mut within, mut across): (Acc, Acc) = (BTreeMap::new(), BTreeMap::new());
     let (mut n_within, mut n_across) = (0u64, 0u64);
     items.for_each_cell_pair(|key, cell_a, cell_b, cell_x| {
@@ -258,30 +301,7 @@ pub fn layer_records(
             *count += n;
         }
     });
-    let mut records = Vec::new();
-    for (condition, acc, n) in [("within", within, n_within), ("across", across, n_across)] {
-        if acc.is_empty() {
-            continue;
-        }
-        let mut sum = 0.0;
-        for by_speakers in acc.values() {
-            let s: f64 = by_speakers.values().map(|&(t, c)| t / c as f64).sum();
-            sum += s / by_speakers.len() as f64;
-        }
-        let score = sum / acc.len() as f64;
-        records.push(AbxRecord {
-            layer,
-            label: items.label.clone(),
-            condition: condition.into(),
-            error_rate: 1.0 - score,
-            n_pairs: acc.len(),
-            n_triplets: n,
-        });
-    }
-    Ok(LayerAbx {
-        records,
-        zero_frames,
-    })
+    ((within, n_within), (across, n_across))
 }
 
 /// Notes on the item structure, or the error when no cell holds a triplet.

@@ -124,15 +124,60 @@ pub(super) fn task_colours() -> (Rgb, Rgb) {
     (c[0], c[1])
 }
 
-/// The headline figure for one capture: probe accuracy (with its confidence band) and k-NN
-/// purity across layers for phone and speaker, majority baselines, and the crossover
-/// marked. Returns the SVG and a sentence saying what the marker means.
-pub fn headline_svg(sec: &CaptureSection) -> Option<(String, String)> {
+/// One curve of the headline figure: its legend name, colour, values and dash pattern.
+type Line = (String, Rgb, Series, &'static str);
+
+/// Plot geometry of the headline figure: size, margins and the layer range.
+struct Frame {
+    w: f64,
+    h: f64,
+    ml: f64,
+    mt: f64,
+    pw: f64,
+    ph: f64,
+    lmin: f64,
+    lmax: f64,
+}
+
+impl Frame {
+    fn new(lmin: f64, lmax: f64) -> Frame {
+        let (w, h) = (760.0, 360.0);
+        let (ml, mr, mt, mb) = (52.0, 200.0, 34.0, 46.0);
+        Frame {
+            w,
+            h,
+            ml,
+            mt,
+            pw: w - ml - mr,
+            ph: h - mt - mb,
+            lmin,
+            lmax,
+        }
+    }
+
+    fn xs(&self, l: f64) -> f64 {
+        if self.lmax > self.lmin {
+            self.ml + (l - self.lmin) / (self.lmax - self.lmin) * self.pw
+        } else {
+            self.ml + self.pw / 2.0
+        }
+    }
+
+    fn ys(&self, v: f64) -> f64 {
+        self.mt + (1.0 - v.clamp(0.0, 1.0)) * self.ph
+    }
+
+    fn point(&self, l: usize, v: f64) -> String {
+        format!("{:.1},{:.1}", self.xs(l as f64), self.ys(v))
+    }
+}
+
+/// The curves of one capture: accuracy and purity per task, and the majority baselines.
+fn headline_lines(sec: &CaptureSection) -> (Vec<Line>, Vec<(Rgb, Series)>) {
     let (pc, sc) = task_colours();
-    let tasks = [("phone", pc), ("speaker", sc)];
-    let mut lines: Vec<(String, Rgb, Series, &str)> = Vec::new();
+    let mut lines: Vec<Line> = Vec::new();
     let mut base: Vec<(Rgb, Series)> = Vec::new();
-    for (t, c) in tasks {
+    for (t, c) in [("phone", pc), ("speaker", sc)] {
         let acc = probe_series(&sec.probe, t, |r| r.accuracy);
         if !acc.layers.is_empty() {
             base.push((c, probe_series(&sec.probe, t, |r| r.majority_baseline)));
@@ -143,6 +188,14 @@ pub fn headline_svg(sec: &CaptureSection) -> Option<(String, String)> {
             lines.push((format!("{t}: k-NN purity"), c, pur, "6 4"));
         }
     }
+    (lines, base)
+}
+
+/// The headline figure for one capture: probe accuracy (with its confidence band) and k-NN
+/// purity across layers for phone and speaker, majority baselines, and the crossover
+/// marked. Returns the SVG and a sentence saying what the marker means.
+pub fn headline_svg(sec: &CaptureSection) -> Option<(String, String)> {
+    let (lines, base) = headline_lines(sec);
     if lines.is_empty() {
         return None;
     }
@@ -152,29 +205,34 @@ pub fn headline_svg(sec: &CaptureSection) -> Option<(String, String)> {
         .collect();
     all_layers.sort_unstable();
     all_layers.dedup();
-    let (lmin, lmax) = (
+    let f = Frame::new(
         all_layers[0] as f64,
         *all_layers.last().unwrap_or(&0) as f64,
     );
-    let (w, h) = (760.0, 360.0);
-    let (ml, mr, mt, mb) = (52.0, 200.0, 34.0, 46.0);
-    let (pw, ph) = (w - ml - mr, h - mt - mb);
-    let xs = |l: f64| {
-        if lmax > lmin {
-            ml + (l - lmin) / (lmax - lmin) * pw
-        } else {
-            ml + pw / 2.0
-        }
-    };
-    let ys = |v: f64| mt + (1.0 - v.clamp(0.0, 1.0)) * ph;
     let mut s = String::new();
     let _ = write!(
         s,
-        r#"<svg xmlns="http://www.w3.org/2000/svg" class="fig" viewBox="0 0 {w} {h}" width="{w}" height="{h}" role="img" aria-label="probe accuracy and purity across layers" font-family="system-ui, 'DejaVu Sans', sans-serif" font-size="12">"#
+        r#"<svg xmlns="http://www.w3.org/2000/svg" class="fig" viewBox="0 0 {w} {h}" width="{w}" height="{h}" role="img" aria-label="probe accuracy and purity across layers" font-family="system-ui, 'DejaVu Sans', sans-serif" font-size="12">"#,
+        w = f.w,
+        h = f.h
     );
+    draw_axes(&mut s, &f, &all_layers);
+    draw_baselines(&mut s, &f, &base);
+    for line in &lines {
+        draw_line(&mut s, &f, line);
+    }
+    let caption = draw_crossover(&mut s, &f, sec);
+    draw_legend(&mut s, &f, &lines, !base.is_empty());
+    s.push_str("</svg>");
+    Some((s, caption))
+}
+
+/// Grid, ticks and axis titles.
+fn draw_axes(s: &mut String, f: &Frame, all_layers: &[usize]) {
+    let (ml, mt, pw, ph) = (f.ml, f.mt, f.pw, f.ph);
     for k in 0..=5 {
         let v = k as f64 / 5.0;
-        let y = ys(v);
+        let y = f.ys(v);
         let _ = write!(
             s,
             r##"<line x1="{ml}" x2="{:.1}" y1="{y:.1}" y2="{y:.1}" stroke="#e4e4e4"/><text x="{:.1}" y="{:.1}" text-anchor="end" fill="#555">{v:.1}</text>"##,
@@ -186,7 +244,7 @@ pub fn headline_svg(sec: &CaptureSection) -> Option<(String, String)> {
     let every = (all_layers.len() / 16).max(1);
     for (i, &l) in all_layers.iter().enumerate() {
         if i % every == 0 || i + 1 == all_layers.len() {
-            let x = xs(l as f64);
+            let x = f.xs(l as f64);
             let _ = write!(
                 s,
                 r##"<line x1="{x:.1}" x2="{x:.1}" y1="{:.1}" y2="{:.1}" stroke="#999"/><text x="{x:.1}" y="{:.1}" text-anchor="middle" fill="#555">{l}</text>"##,
@@ -204,17 +262,20 @@ pub fn headline_svg(sec: &CaptureSection) -> Option<(String, String)> {
         mt + ph,
         mt + ph,
         ml + pw / 2.0,
-        h - 8.0,
+        f.h - 8.0,
         mt + ph / 2.0
     );
-    // Majority baselines: thin dotted lines.
-    for (c, b) in &base {
+}
+
+/// Majority baselines: thin dotted lines.
+fn draw_baselines(s: &mut String, f: &Frame, base: &[(Rgb, Series)]) {
+    for (c, b) in base {
         let pts: Vec<String> = b
             .layers
             .iter()
             .zip(&b.value)
             .filter(|(_, v)| v.is_finite())
-            .map(|(&l, &v)| format!("{:.1},{:.1}", xs(l as f64), ys(v)))
+            .map(|(&l, &v)| f.point(l, v))
             .collect();
         if pts.len() > 1 {
             let _ = write!(
@@ -225,66 +286,70 @@ pub fn headline_svg(sec: &CaptureSection) -> Option<(String, String)> {
             );
         }
     }
-    for (_, c, ser, dash) in &lines {
-        let col = hex(*c);
-        // Confidence band.
-        if ser.low.len() == ser.layers.len()
-            && ser.low.iter().chain(&ser.high).all(|v| v.is_finite())
-            && ser.layers.len() > 1
-        {
-            let mut pts: Vec<String> = ser
-                .layers
-                .iter()
-                .zip(&ser.high)
-                .map(|(&l, &v)| format!("{:.1},{:.1}", xs(l as f64), ys(v)))
-                .collect();
-            pts.extend(
-                ser.layers
-                    .iter()
-                    .zip(&ser.low)
-                    .rev()
-                    .map(|(&l, &v)| format!("{:.1},{:.1}", xs(l as f64), ys(v))),
-            );
-            let _ = write!(
-                s,
-                r#"<polygon points="{}" fill="{col}" opacity="0.18"/>"#,
-                pts.join(" ")
-            );
-        }
-        let pts: Vec<(f64, f64)> = ser
+}
+
+/// One curve: its confidence band when it has one, the line, and its point markers
+/// (filled circles for accuracy, open squares for purity).
+fn draw_line(s: &mut String, f: &Frame, (_, c, ser, dash): &Line) {
+    let col = hex(*c);
+    if ser.low.len() == ser.layers.len()
+        && ser.low.iter().chain(&ser.high).all(|v| v.is_finite())
+        && ser.layers.len() > 1
+    {
+        let mut pts: Vec<String> = ser
             .layers
             .iter()
-            .zip(&ser.value)
-            .filter(|(_, v)| v.is_finite())
-            .map(|(&l, &v)| (xs(l as f64), ys(v)))
+            .zip(&ser.high)
+            .map(|(&l, &v)| f.point(l, v))
             .collect();
-        let text: Vec<String> = pts.iter().map(|(x, y)| format!("{x:.1},{y:.1}")).collect();
+        pts.extend(
+            ser.layers
+                .iter()
+                .zip(&ser.low)
+                .rev()
+                .map(|(&l, &v)| f.point(l, v)),
+        );
         let _ = write!(
             s,
-            r#"<polyline points="{}" fill="none" stroke="{col}" stroke-width="2.2" stroke-dasharray="{dash}" stroke-linejoin="round"/>"#,
-            text.join(" ")
+            r#"<polygon points="{}" fill="{col}" opacity="0.18"/>"#,
+            pts.join(" ")
         );
+    }
+    let pts: Vec<(f64, f64)> = ser
+        .layers
+        .iter()
+        .zip(&ser.value)
+        .filter(|(_, v)| v.is_finite())
+        .map(|(&l, &v)| (f.xs(l as f64), f.ys(v)))
+        .collect();
+    let text: Vec<String> = pts.iter().map(|(x, y)| format!("{x:.1},{y:.1}")).collect();
+    let _ = write!(
+        s,
+        r#"<polyline points="{}" fill="none" stroke="{col}" stroke-width="2.2" stroke-dasharray="{dash}" stroke-linejoin="round"/>"#,
+        text.join(" ")
+    );
+    for (x, y) in &pts {
         if dash.is_empty() {
-            for (x, y) in &pts {
-                let _ = write!(
-                    s,
-                    r#"<circle cx="{x:.1}" cy="{y:.1}" r="3.2" fill="{col}"/>"#
-                );
-            }
+            let _ = write!(
+                s,
+                r#"<circle cx="{x:.1}" cy="{y:.1}" r="3.2" fill="{col}"/>"#
+            );
         } else {
-            for (x, y) in &pts {
-                let _ = write!(
-                    s,
-                    r##"<rect x="{:.1}" y="{:.1}" width="5" height="5" fill="#fff" stroke="{col}" stroke-width="1.5"/>"##,
-                    x - 2.5,
-                    y - 2.5
-                );
-            }
+            let _ = write!(
+                s,
+                r##"<rect x="{:.1}" y="{:.1}" width="5" height="5" fill="#fff" stroke="{col}" stroke-width="1.5"/>"##,
+                x - 2.5,
+                y - 2.5
+            );
         }
     }
-    // The crossover: from probe accuracy when both tasks have it, else from purity.
-    let pick = |f: &dyn Fn(&str) -> Series| {
-        let (a, b) = (f("phone"), f("speaker"));
+}
+
+/// The crossover: from probe accuracy when both tasks have it, else from purity. Draws its
+/// marker and returns the caption sentence.
+fn draw_crossover(s: &mut String, f: &Frame, sec: &CaptureSection) -> String {
+    let pick = |get: &dyn Fn(&str) -> Series| {
+        let (a, b) = (get("phone"), get("speaker"));
         if a.layers.is_empty() || b.layers.is_empty() {
             None
         } else {
@@ -295,40 +360,45 @@ pub fn headline_svg(sec: &CaptureSection) -> Option<(String, String)> {
     let cross = pick(&|t| probe_series(&sec.probe, t, |r| r.accuracy))
         .map(|c| (c, "probe accuracy"))
         .or_else(|| pick(&|t| purity_series(&sec.purity, t)).map(|c| (c, "k-NN purity")));
-    let caption = match cross {
-        Some((c, what)) => {
-            let x = xs(c.layer as f64);
-            let label = match c.kind {
-                CrossKind::PhoneOvertakes => format!("phone overtakes speaker at layer {}", c.layer),
-                CrossKind::SpeakerBelowHalf => format!("speaker below half its range at layer {}", c.layer),
-            };
-            let anchor = if x > ml + pw * 0.6 { "end" } else { "start" };
-            let tx = if anchor == "end" { x - 5.0 } else { x + 5.0 };
-            let _ = write!(
-                s,
-                r##"<line x1="{x:.1}" x2="{x:.1}" y1="{:.1}" y2="{:.1}" stroke="#222" stroke-width="1.2" stroke-dasharray="4 3"/><text x="{tx:.1}" y="{:.1}" text-anchor="{anchor}" fill="#222" font-weight="bold">{}</text>"##,
-                mt - 12.0,
-                mt + ph,
-                mt - 16.0,
-                esc(&label)
-            );
-            match c.kind {
-                CrossKind::PhoneOvertakes => format!(
-                    "The dashed vertical line marks layer {}, the first layer where phone {what} rises above speaker {what}.",
-                    c.layer
-                ),
-                CrossKind::SpeakerBelowHalf => format!(
-                    "The phone and speaker curves do not cross here; the dashed vertical line marks layer {}, where speaker {what} first falls below the middle of its range after its peak.",
-                    c.layer
-                ),
-            }
-        }
-        None => "No crossover: the phone and speaker curves do not cross and speaker never falls below half its range.".to_string(),
+    let Some((c, what)) = cross else {
+        return "No crossover: the phone and speaker curves do not cross and speaker never falls below half its range.".to_string();
     };
-    // Legend on the right.
-    let lx = ml + pw + 18.0;
-    let mut ly = mt + 6.0;
-    for (name, c, _, dash) in &lines {
+    let x = f.xs(c.layer as f64);
+    let label = match c.kind {
+        CrossKind::PhoneOvertakes => format!("phone overtakes speaker at layer {}", c.layer),
+        CrossKind::SpeakerBelowHalf => format!("speaker below half its range at layer {}", c.layer),
+    };
+    let anchor = if x > f.ml + f.pw * 0.6 {
+        "end"
+    } else {
+        "start"
+    };
+    let tx = if anchor == "end" { x - 5.0 } else { x + 5.0 };
+    let _ = write!(
+        s,
+        r##"<line x1="{x:.1}" x2="{x:.1}" y1="{:.1}" y2="{:.1}" stroke="#222" stroke-width="1.2" stroke-dasharray="4 3"/><text x="{tx:.1}" y="{:.1}" text-anchor="{anchor}" fill="#222" font-weight="bold">{}</text>"##,
+        f.mt - 12.0,
+        f.mt + f.ph,
+        f.mt - 16.0,
+        esc(&label)
+    );
+    match c.kind {
+        CrossKind::PhoneOvertakes => format!(
+            "The dashed vertical line marks layer {}, the first layer where phone {what} rises above speaker {what}.",
+            c.layer
+        ),
+        CrossKind::SpeakerBelowHalf => format!(
+            "The phone and speaker curves do not cross here; the dashed vertical line marks layer {}, where speaker {what} first falls below the middle of its range after its peak.",
+            c.layer
+        ),
+    }
+}
+
+/// Legend on the right: one entry per curve, then the baseline and the interval band.
+fn draw_legend(s: &mut String, f: &Frame, lines: &[Line], has_base: bool) {
+    let lx = f.ml + f.pw + 18.0;
+    let mut ly = f.mt + 6.0;
+    for (name, c, _, dash) in lines {
         let _ = write!(
             s,
             r##"<line x1="{lx:.1}" x2="{:.1}" y1="{ly:.1}" y2="{ly:.1}" stroke="{}" stroke-width="2.2" stroke-dasharray="{dash}"/><text x="{:.1}" y="{:.1}" fill="#333">{}</text>"##,
@@ -340,7 +410,7 @@ pub fn headline_svg(sec: &CaptureSection) -> Option<(String, String)> {
         );
         ly += 20.0;
     }
-    if !base.is_empty() {
+    if has_base {
         let _ = write!(
             s,
             r##"<line x1="{lx:.1}" x2="{:.1}" y1="{ly:.1}" y2="{ly:.1}" stroke="#666" stroke-dasharray="1 3"/><text x="{:.1}" y="{:.1}" fill="#333">majority baseline</text>"##,
@@ -357,8 +427,6 @@ pub fn headline_svg(sec: &CaptureSection) -> Option<(String, String)> {
             ly + 4.0
         );
     }
-    s.push_str("</svg>");
-    Some((s, caption))
 }
 
 #[cfg(test)]

@@ -211,6 +211,35 @@ pub fn render(inp: &ReportInputs) -> String {
     } else {
         inp.title.as_str()
     };
+    let has_maps = inp
+        .captures
+        .iter()
+        .any(|c| c.maps.as_ref().is_some_and(|m| !m.layers.is_empty()));
+    head_html(&mut o, inp, title);
+    o.push_str("<section id=\"analysed\"><h2>What was analysed</h2>");
+    summary_table(&mut o, &inp.captures);
+    o.push_str("</section>");
+    headline_html(&mut o, inp);
+    maps_html(&mut o, inp, has_maps);
+    abx_html(&mut o, inp);
+    if let Some(c) = &inp.compare {
+        compare_html(&mut o, inp, c);
+    }
+    numbers_html(&mut o, inp);
+    notes_html(&mut o, inp);
+    o.push_str("<section id=\"methods\"><h2>Methods</h2>");
+    methods_html(&mut o, inp);
+    o.push_str("</section></main>");
+    let _ = write!(o, "<footer>Made by voxstrata {}. This page is one file: it needs no network and nothing beside it.</footer>", esc(&inp.methods.version));
+    if has_maps {
+        explorer_data(&mut o, inp);
+    }
+    o.push_str("</body></html>\n");
+    o
+}
+
+/// The document head, the style sheet, and the header with its navigation.
+fn head_html(o: &mut String, inp: &ReportInputs, title: &str) {
     let _ = write!(
         o,
         "<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\"><meta name=\"viewport\" content=\"width=device-width, initial-scale=1\">\
@@ -220,10 +249,6 @@ pub fn render(inp: &ReportInputs) -> String {
         esc(title),
         STYLE
     );
-    let has_maps = inp
-        .captures
-        .iter()
-        .any(|c| c.maps.as_ref().is_some_and(|m| !m.layers.is_empty()));
     let _ = write!(o, "<header><h1>{}</h1><nav><a href=\"#analysed\">Analysed</a><a href=\"#headline\">Phone and speaker</a><a href=\"#maps\">Layer maps</a>", esc(title));
     if inp.compare.is_some() {
         o.push_str("<a href=\"#compare\">Comparison</a>");
@@ -231,11 +256,10 @@ pub fn render(inp: &ReportInputs) -> String {
     o.push_str(
         "<a href=\"#numbers\">Numbers</a><a href=\"#methods\">Methods</a></nav></header><main>",
     );
+}
 
-    o.push_str("<section id=\"analysed\"><h2>What was analysed</h2>");
-    summary_table(&mut o, &inp.captures);
-    o.push_str("</section>");
-
+/// The headline section: one figure per capture, then the probe figures.
+fn headline_html(o: &mut String, inp: &ReportInputs) {
     o.push_str("<section id=\"headline\"><h2>Phone and speaker across layers</h2>");
     let mut any = false;
     for sec in &inp.captures {
@@ -257,10 +281,13 @@ pub fn render(inp: &ReportInputs) -> String {
         .iter()
         .filter(|f| f.section == FigureSection::Probe)
     {
-        figure_img(&mut o, f);
+        figure_img(o, f);
     }
     o.push_str("</section>");
+}
 
+/// The layer-map section: the interactive explorer when maps exist, then the map figures.
+fn maps_html(o: &mut String, inp: &ReportInputs, has_maps: bool) {
     o.push_str("<section id=\"maps\"><h2>Layer maps</h2>");
     if has_maps {
         o.push_str(
@@ -280,61 +307,64 @@ pub fn render(inp: &ReportInputs) -> String {
         .iter()
         .filter(|f| f.section == FigureSection::Maps)
     {
-        figure_img(&mut o, f);
+        figure_img(o, f);
     }
     o.push_str("</section>");
-    abx_html(&mut o, inp);
+}
 
-    if let Some(c) = &inp.compare {
-        let _ = write!(
-            o,
-            "<section id=\"compare\"><h2>{} against {}</h2>",
-            esc(&c.name_a),
-            esc(&c.name_b)
-        );
-        for f in inp
-            .figures
-            .iter()
-            .filter(|f| f.section == FigureSection::Compare)
-        {
-            figure_img(&mut o, f);
-        }
-        let rows: Vec<Vec<String>> = c
-            .probe_delta
-            .iter()
-            .map(|d| {
-                vec![
-                    d.layer.to_string(),
-                    d.task.clone(),
-                    f3(d.accuracy_a),
-                    f3(d.accuracy_b),
-                    f3(d.delta),
-                    format!("{} to {}", f3(d.ci_low), f3(d.ci_high)),
-                    pvalue(d.mcnemar_p),
-                    format!("{} / {}", d.b, d.c),
-                ]
-            })
-            .collect();
-        if !rows.is_empty() {
-            let a = format!("accuracy {}", c.name_a);
-            let b = format!("accuracy {}", c.name_b);
-            let only = format!("right on {} only / {} only", c.name_a, c.name_b);
-            table(
-                &mut o,
+/// The comparison section: its figures and the per-layer probe differences.
+fn compare_html(o: &mut String, inp: &ReportInputs, c: &CompareInputs) {
+    let _ = write!(
+        o,
+        "<section id=\"compare\"><h2>{} against {}</h2>",
+        esc(&c.name_a),
+        esc(&c.name_b)
+    );
+    for f in inp
+        .figures
+        .iter()
+        .filter(|f| f.section == FigureSection::Compare)
+    {
+        figure_img(o, f);
+    }
+    let rows: Vec<Vec<String>> = c
+        .probe_delta
+        .iter()
+        .map(|d| {
+            vec![
+                d.layer.to_string(),
+                d.task.clone(),
+                f3(d.accuracy_a),
+                f3(d.accuracy_b),
+                f3(d.delta),
+                format!("{} to {}", f3(d.ci_low), f3(d.ci_high)),
+                pvalue(d.mcnemar_p),
+                format!("{} / {}", d.b, d.c),
+            ]
+        })
+        .collect();
+    if !rows.is_empty() {
+        let a = format!("accuracy {}", c.name_a);
+        let b = format!("accuracy {}", c.name_b);
+        let only = format!("right on {} only / {} only", c.name_a, c.name_b);
+        table(
+                o,
                 "Probe accuracy per layer in both captures (difference with its paired speaker-bootstrap 95% interval; McNemar's test on paired predictions)",
                 &["layer", "task", &a, &b, "difference", "95% interval", "McNemar p", &only],
                 &rows,
             );
-        }
-        o.push_str("</section>");
     }
+    o.push_str("</section>");
+}
 
+/// The tables behind the figures: probes and purity per capture, and CKA.
+fn numbers_html(o: &mut String, inp: &ReportInputs) {
     o.push_str("<section id=\"numbers\"><h2>Numbers behind the figures</h2>");
     for sec in &inp.captures {
         let name = &sec.summary.name;
         if !sec.probe.is_empty() {
             table(
-                &mut o,
+                o,
                 &format!("Probes: {name}"),
                 &PROBE_HEAD,
                 &probe_rows(&sec.probe),
@@ -342,7 +372,7 @@ pub fn render(inp: &ReportInputs) -> String {
         }
         if !sec.purity.is_empty() {
             table(
-                &mut o,
+                o,
                 &format!("Purity: {name}"),
                 &PURITY_HEAD,
                 &purity_rows(&sec.purity),
@@ -365,35 +395,28 @@ pub fn render(inp: &ReportInputs) -> String {
         if !rows.is_empty() {
             let a = format!("layer of {}", c.name_a);
             let b = format!("layer of {}", c.name_b);
-            table(&mut o, "CKA", &[&a, &b, "CKA"], &rows);
+            table(o, "CKA", &[&a, &b, "CKA"], &rows);
         }
     }
     o.push_str("</section>");
+}
 
-    notes_html(&mut o, inp);
-    o.push_str("<section id=\"methods\"><h2>Methods</h2>");
-    methods_html(&mut o, inp);
-    o.push_str("</section></main>");
-    let _ = write!(o, "<footer>Made by voxstrata {}. This page is one file: it needs no network and nothing beside it.</footer>", esc(&inp.methods.version));
-
-    if has_maps {
-        let sets: Vec<serde_json::Value> = inp
-            .captures
-            .iter()
-            .filter_map(|c| c.maps.as_ref())
-            .filter(|m| !m.layers.is_empty())
-            .map(map_json)
-            .collect();
-        let data = serde_json::json!({ "sets": sets, "other": hex(OTHER) });
-        let _ = write!(
-            o,
-            "<script type=\"application/json\" id=\"vx-data\">{}</script><script>{}</script>",
-            script_json(&data),
-            SCRIPT
-        );
-    }
-    o.push_str("</body></html>\n");
-    o
+/// The explorer's data and script, embedded in the page.
+fn explorer_data(o: &mut String, inp: &ReportInputs) {
+    let sets: Vec<serde_json::Value> = inp
+        .captures
+        .iter()
+        .filter_map(|c| c.maps.as_ref())
+        .filter(|m| !m.layers.is_empty())
+        .map(map_json)
+        .collect();
+    let data = serde_json::json!({ "sets": sets, "other": hex(OTHER) });
+    let _ = write!(
+        o,
+        "<script type=\"application/json\" id=\"vx-data\">{}</script><script>{}</script>",
+        script_json(&data),
+        SCRIPT
+    );
 }
 
 #[cfg(test)]
