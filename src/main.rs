@@ -166,27 +166,7 @@ enum Command {
         probe: ProbeArgs,
     },
     /// 2-D maps (t-SNE or PCA) and cluster purity per layer.
-    Map {
-        /// Capture folder.
-        capture: PathBuf,
-        /// Map method.
-        #[arg(long, value_enum, default_value = "tsne")]
-        method: MapMethod,
-        /// Frames drawn per speaker × phone cell (all of a cell's frames when it has fewer).
-        #[arg(long = "per-label", default_value_t = 10)]
-        per_label: usize,
-        /// Also colour the maps by this label (repeatable); speaker and phone are always drawn.
-        #[arg(long = "color-by", value_name = "LABEL")]
-        color_by: Vec<String>,
-        /// Output folder.
-        #[arg(long, default_value = "voxstrata-map")]
-        out: PathBuf,
-        /// Write into an output folder that already holds files.
-        #[arg(long)]
-        force: bool,
-        #[command(flatten)]
-        cap: CaptureArgs,
-    },
+    Map(MapCmd),
     /// Compare two captures of the same frames layer by layer.
     Compare {
         /// First capture.
@@ -199,43 +179,9 @@ enum Command {
         args: CompareArgs,
     },
     /// Phone ABX error per layer, within and across speaker.
-    Abx {
-        /// Capture folder.
-        capture: PathBuf,
-        /// Label column whose runs are the items.
-        #[arg(long, default_value = "phone")]
-        label: String,
-        /// Most items per (label, context, speaker) cell, drawn with the seed (0: all).
-        #[arg(long = "max-items", default_value_t = 5)]
-        max_items: usize,
-        /// Output folder.
-        #[arg(long, default_value = "voxstrata-abx")]
-        out: PathBuf,
-        /// Write into an output folder that already holds files.
-        #[arg(long)]
-        force: bool,
-        #[command(flatten)]
-        cap: CaptureArgs,
-    },
+    Abx(AbxCmd),
     /// Run everything and write one HTML report.
-    Report {
-        /// One or two captures (none: the shipped demo).
-        captures: Vec<PathBuf>,
-        /// Output folder (index.html, run.json and every analysis's records and figures).
-        #[arg(long, default_value = "voxstrata-report")]
-        out: PathBuf,
-        /// Write into an output folder that already holds files.
-        #[arg(long)]
-        force: bool,
-        /// Layer map method (pca is much faster on big captures).
-        #[arg(long = "map-method", value_enum, default_value = "tsne")]
-        map_method: MapMethod,
-        /// Skip the ABX analysis.
-        #[arg(long = "no-abx")]
-        no_abx: bool,
-        #[command(flatten)]
-        cap: CaptureArgs,
-    },
+    Report(ReportCmd),
     /// Build the demo scenario and write its two captures.
     Demo {
         /// Output folder.
@@ -248,6 +194,69 @@ enum Command {
         #[arg(long, value_enum, default_value = "default")]
         size: DemoSizeArg,
     },
+}
+
+#[derive(Args, Debug)]
+struct MapCmd {
+    /// Capture folder.
+    capture: PathBuf,
+    /// Map method.
+    #[arg(long, value_enum, default_value = "tsne")]
+    method: MapMethod,
+    /// Frames drawn per speaker × phone cell (all of a cell's frames when it has fewer).
+    #[arg(long = "per-label", default_value_t = 10)]
+    per_label: usize,
+    /// Also colour the maps by this label (repeatable); speaker and phone are always drawn.
+    #[arg(long = "color-by", value_name = "LABEL")]
+    color_by: Vec<String>,
+    /// Output folder.
+    #[arg(long, default_value = "voxstrata-map")]
+    out: PathBuf,
+    /// Write into an output folder that already holds files.
+    #[arg(long)]
+    force: bool,
+    #[command(flatten)]
+    cap: CaptureArgs,
+}
+
+#[derive(Args, Debug)]
+struct AbxCmd {
+    /// Capture folder.
+    capture: PathBuf,
+    /// Label column whose runs are the items.
+    #[arg(long, default_value = "phone")]
+    label: String,
+    /// Most items per (label, context, speaker) cell, drawn with the seed (0: all).
+    #[arg(long = "max-items", default_value_t = 5)]
+    max_items: usize,
+    /// Output folder.
+    #[arg(long, default_value = "voxstrata-abx")]
+    out: PathBuf,
+    /// Write into an output folder that already holds files.
+    #[arg(long)]
+    force: bool,
+    #[command(flatten)]
+    cap: CaptureArgs,
+}
+
+#[derive(Args, Debug)]
+struct ReportCmd {
+    /// One or two captures (none: the shipped demo).
+    captures: Vec<PathBuf>,
+    /// Output folder (index.html, run.json and every analysis's records and figures).
+    #[arg(long, default_value = "voxstrata-report")]
+    out: PathBuf,
+    /// Write into an output folder that already holds files.
+    #[arg(long)]
+    force: bool,
+    /// Layer map method (pca is much faster on big captures).
+    #[arg(long = "map-method", value_enum, default_value = "tsne")]
+    map_method: MapMethod,
+    /// Skip the ABX analysis.
+    #[arg(long = "no-abx")]
+    no_abx: bool,
+    #[command(flatten)]
+    cap: CaptureArgs,
 }
 
 /// Size of the demo scenario.
@@ -327,6 +336,55 @@ fn compare_options(args: &CompareArgs) -> CompareOptions {
     }
 }
 
+impl MapCmd {
+    fn args(self) -> Result<commands::map::MapArgs, Error> {
+        Ok(commands::map::MapArgs {
+            open: open_options(&self.cap)?,
+            capture: self.capture,
+            map: MapOptions {
+                method: map_method(self.method),
+                per_label: self.per_label,
+                color_by: self.color_by,
+                ..Default::default()
+            },
+            out: self.out,
+            force: self.force,
+        })
+    }
+}
+
+impl AbxCmd {
+    fn args(self) -> Result<commands::abx::AbxArgs, Error> {
+        Ok(commands::abx::AbxArgs {
+            open: open_options(&self.cap)?,
+            capture: self.capture,
+            abx: AbxOptions {
+                label: self.label,
+                max_items: self.max_items,
+            },
+            out: self.out,
+            force: self.force,
+        })
+    }
+}
+
+impl ReportCmd {
+    fn options(self) -> Result<commands::report::ReportOptions, Error> {
+        Ok(commands::report::ReportOptions {
+            open: open_options(&self.cap)?,
+            captures: self.captures,
+            out: self.out,
+            force: self.force,
+            map: MapOptions {
+                method: map_method(self.map_method),
+                ..Default::default()
+            },
+            abx: (!self.no_abx).then(AbxOptions::default),
+            ..Default::default()
+        })
+    }
+}
+
 fn run(cli: Cli) -> Result<(), Error> {
     let common = CommonOptions {
         seed: cli.seed,
@@ -343,15 +401,12 @@ fn run(cli: Cli) -> Result<(), Error> {
     let (c, p) = (&common, &progress);
     match cli.command {
         Command::Inspect { capture, json, cap } => {
-            let open = open_options(&cap)?;
-            commands::inspect::run(
-                &commands::inspect::InspectArgs {
-                    capture,
-                    open,
-                    json,
-                },
-                p,
-            )
+            let args = commands::inspect::InspectArgs {
+                capture,
+                open: open_options(&cap)?,
+                json,
+            };
+            commands::inspect::run(&args, p)
         }
         Command::Probe {
             capture,
@@ -367,31 +422,7 @@ fn run(cli: Cli) -> Result<(), Error> {
             };
             commands::probe::run(&args, c, p)
         }
-        Command::Map {
-            capture,
-            method,
-            per_label,
-            color_by,
-            out,
-            force,
-            cap,
-        } => {
-            let map = MapOptions {
-                method: map_method(method),
-                per_label,
-                color_by,
-                ..Default::default()
-            };
-            let open = open_options(&cap)?;
-            let args = commands::map::MapArgs {
-                capture,
-                open,
-                map,
-                out,
-                force,
-            };
-            commands::map::run(&args, c, p)
-        }
+        Command::Map(m) => commands::map::run(&m.args()?, c, p),
         Command::Compare {
             capture_a,
             capture_b,
@@ -408,62 +439,20 @@ fn run(cli: Cli) -> Result<(), Error> {
             };
             commands::compare::run(&run_args, c, p)
         }
-        Command::Abx {
-            capture,
-            label,
-            max_items,
-            out,
-            force,
-            cap,
-        } => {
-            let abx = AbxOptions { label, max_items };
-            let open = open_options(&cap)?;
-            let args = commands::abx::AbxArgs {
-                capture,
-                open,
-                abx,
-                out,
-                force,
-            };
-            commands::abx::run(&args, c, p)
-        }
-        Command::Report {
-            captures,
-            out,
-            force,
-            map_method: method,
-            no_abx,
-            cap,
-        } => {
-            let opts = commands::report::ReportOptions {
-                captures,
-                out,
-                force,
-                open: open_options(&cap)?,
-                map: MapOptions {
-                    method: map_method(method),
-                    ..Default::default()
-                },
-                abx: (!no_abx).then(AbxOptions::default),
-                ..Default::default()
-            };
-            report(&opts, c, p, cli.quiet)
-        }
+        Command::Abx(a) => commands::abx::run(&a.args()?, c, p),
+        Command::Report(r) => report(&r.options()?, c, p, cli.quiet),
         Command::Demo { out, force, size } => {
             let size = match size {
                 DemoSizeArg::Default => voxstrata::demo::DemoSize::Default,
                 DemoSizeArg::Small => voxstrata::demo::DemoSize::Small,
             };
-            let seed = c.seed;
-            commands::demo::run(
-                &commands::demo::DemoArgs {
-                    out,
-                    force,
-                    seed,
-                    size,
-                },
-                p,
-            )
+            let args = commands::demo::DemoArgs {
+                out,
+                force,
+                seed: c.seed,
+                size,
+            };
+            commands::demo::run(&args, p)
         }
     }
 }

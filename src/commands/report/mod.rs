@@ -204,25 +204,70 @@ pub fn run(
             c, dir, &prefix, &opts, common, progress, &mut clock,
         )?);
     }
-    let mut compare = None;
-    let mut compare_written = Written::default();
-    let mut compare_options = None;
-    if let [a, b] = caps.as_slice() {
-        let t = Instant::now();
-        let rep = crate::analysis::compare::run(a, b, &opts.compare, common, progress)?;
-        compare_written = super::compare::write(&rep, &opts.out)?;
-        compare_options = Some(rep.options.clone());
-        compare = Some(CompareInputs {
+    let compare = compare_step(&caps, &opts, common, progress, &mut clock)?;
+
+    let t = Instant::now();
+    let (inputs, mut outputs) = gather(&caps, results, compare, &opts, common, &hashes, &clock)?;
+    let step = progress.step("writing report", 1);
+    let index = opts.out.join("index.html");
+    write::write_atomic(&index, page::render(&inputs).as_bytes())?;
+    step.inc(1);
+    drop(step);
+    outputs.push(index);
+    clock.done("write index.html", t);
+    clock.0.push(StepTime {
+        step: "total".into(),
+        seconds: t_all.elapsed().as_secs_f64(),
+    });
+    write_run_record(&opts, common, &caps, clock.0, hashes, outputs)
+}
+
+/// What the comparison of two captures gave: the page's inputs, its options and the files
+/// written.
+struct CompareResult {
+    inputs: CompareInputs,
+    options: serde_json::Value,
+    written: Written,
+}
+
+/// With two captures, compare them and write `compare.json` and its figures.
+fn compare_step(
+    caps: &[Capture],
+    opts: &ReportOptions,
+    common: &CommonOptions,
+    progress: &Progress,
+    clock: &mut Clock,
+) -> crate::Result<Option<CompareResult>> {
+    let [a, b] = caps else {
+        return Ok(None);
+    };
+    let t = Instant::now();
+    let rep = crate::analysis::compare::run(a, b, &opts.compare, common, progress)?;
+    let written = super::compare::write(&rep, &opts.out)?;
+    clock.done("compare", t);
+    Ok(Some(CompareResult {
+        options: rep.options.clone(),
+        inputs: CompareInputs {
             name_a: a.name.clone(),
             name_b: b.name.clone(),
             cka: rep.cka,
             probe_delta: rep.probe_delta,
             notes: rep.notes,
-        });
-        clock.done("compare", t);
-    }
+        },
+        written,
+    }))
+}
 
-    let t = Instant::now();
+/// Gather every result into the page's inputs, and list the files written so far.
+fn gather(
+    caps: &[Capture],
+    results: Vec<CaptureResult>,
+    compare: Option<CompareResult>,
+    opts: &ReportOptions,
+    common: &CommonOptions,
+    hashes: &[FileHash],
+    clock: &Clock,
+) -> crate::Result<(ReportInputs, Vec<PathBuf>)> {
     let mut outputs: Vec<PathBuf> = Vec::new();
     let mut figures = Vec::new();
     let mut method_options = Vec::new();
@@ -233,8 +278,8 @@ pub fn run(
         method_options.extend(r.options);
         sections.push(r.section);
     }
-    if let Some(o) = compare_options {
-        method_options.push(("compare".to_string(), o));
+    if let Some(c) = &compare {
+        method_options.push(("compare".to_string(), c.options.clone()));
     }
     if let Some(a) = &opts.abx {
         method_options.push(("abx".to_string(), write::json::to_value(a)?));
@@ -249,16 +294,19 @@ pub fn run(
                 .map(|d| embed(d, FigureSection::Abx, "")),
         );
     }
-    outputs.extend(compare_written.files);
-    // The page shows the CKA values in its table and the heatmap as drawn for compare_cka.
-    figures.extend(
-        compare_written
-            .figures
-            .into_iter()
-            .map(|d| embed(d, FigureSection::Compare, "")),
-    );
+    let compare = compare.map(|c| {
+        outputs.extend(c.written.files);
+        // The page shows the CKA values in its table and the heatmap as drawn for compare_cka.
+        figures.extend(
+            c.written
+                .figures
+                .into_iter()
+                .map(|d| embed(d, FigureSection::Compare, "")),
+        );
+        c.inputs
+    });
     let inputs = ReportInputs {
-        title: page_title(&caps),
+        title: page_title(caps),
         captures: sections,
         compare,
         figures,
@@ -266,7 +314,7 @@ pub fn run(
             version: env!("CARGO_PKG_VERSION").to_string(),
             seed: common.seed,
             options: method_options,
-            hashes: hashes.clone(),
+            hashes: hashes.to_vec(),
             timings: clock
                 .0
                 .iter()
@@ -274,18 +322,7 @@ pub fn run(
                 .collect(),
         },
     };
-    let step = progress.step("writing report", 1);
-    let index = opts.out.join("index.html");
-    write::write_atomic(&index, page::render(&inputs).as_bytes())?;
-    step.inc(1);
-    drop(step);
-    outputs.push(index);
-    clock.done("write index.html", t);
-    clock.0.push(StepTime {
-        step: "total".into(),
-        seconds: t_all.elapsed().as_secs_f64(),
-    });
-    write_run_record(&opts, common, &caps, clock.0, hashes, outputs)
+    Ok((inputs, outputs))
 }
 
 /// Open every capture and check they can be analysed together, before any analysis.
