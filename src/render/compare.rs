@@ -8,7 +8,7 @@ use plotters::coord::Shift;
 use plotters::prelude::*;
 
 use crate::records::compare::{CompareReport, Kernel, ProbeDelta};
-use crate::render::{category_colours, e2s, ramp, text};
+use crate::render::{category_colours, e2s, ramp, text, Rgb};
 
 /// Most layers per axis for which the values are printed in the cells.
 pub const CELL_TEXT_MAX_LAYERS: usize = 16;
@@ -361,19 +361,13 @@ impl ProbeCurves {
     }
 }
 
-impl super::Figure for ProbeCurves {
-    fn size(&self) -> (u32, u32) {
-        let k = self.tasks.len() as u32;
-        (560 * k.min(3), 400 * k.div_ceil(3) + LEGEND_STRIP)
-    }
-
-    fn draw<DB: DrawingBackend>(&self, area: &DrawingArea<DB, Shift>) -> Result<(), String> {
-        let k = self.tasks.len();
-        let cols = k.min(3);
-        let rows = k.div_ceil(3);
-        let colours = category_colours(2);
-        // One legend above all panels, where it can never cover a curve.
-        let (top, body) = area.split_vertically(LEGEND_STRIP);
+impl ProbeCurves {
+    /// The strip above the panels: one swatch per capture and what the bands mean.
+    fn draw_legend<DB: DrawingBackend>(
+        &self,
+        top: &DrawingArea<DB, Shift>,
+        colours: &[Rgb],
+    ) -> Result<(), String> {
         let names = [&self.names.0, &self.names.1];
         let mut x = 20i32;
         for (s, name) in names.iter().enumerate() {
@@ -409,69 +403,98 @@ impl super::Figure for ProbeCurves {
             st,
         ))
         .map_err(e2s)?;
-        let panels = body.split_evenly((rows, cols));
-        for ((task, ds), panel) in self.tasks.iter().zip(panels.iter()) {
-            let lo = ds.iter().map(|d| d.layer).min().unwrap_or(0) as f64;
-            let hi = ds.iter().map(|d| d.layer).max().unwrap_or(0) as f64;
-            // A margin so end points are not clipped by the frame.
-            let pad = ((hi - lo) * 0.03).max(0.3);
-            let (lo, hi) = (lo - pad, hi + pad);
-            let mut chart = ChartBuilder::on(panel)
-                .caption(format!("{task} probe accuracy"), text(16.0))
-                .margin(12)
-                .x_label_area_size(40)
-                .y_label_area_size(52)
-                .build_cartesian_2d(lo..hi, 0f64..1.02)
+        Ok(())
+    }
+
+    /// One task's panel: both captures' accuracy per layer with their bands.
+    fn draw_panel<DB: DrawingBackend>(
+        &self,
+        panel: &DrawingArea<DB, Shift>,
+        task: &str,
+        ds: &[ProbeDelta],
+        colours: &[Rgb],
+    ) -> Result<(), String> {
+        let lo = ds.iter().map(|d| d.layer).min().unwrap_or(0) as f64;
+        let hi = ds.iter().map(|d| d.layer).max().unwrap_or(0) as f64;
+        // A margin so end points are not clipped by the frame.
+        let pad = ((hi - lo) * 0.03).max(0.3);
+        let (lo, hi) = (lo - pad, hi + pad);
+        let mut chart = ChartBuilder::on(panel)
+            .caption(format!("{task} probe accuracy"), text(16.0))
+            .margin(12)
+            .x_label_area_size(40)
+            .y_label_area_size(52)
+            .build_cartesian_2d(lo..hi, 0f64..1.02)
+            .map_err(e2s)?;
+        chart
+            .configure_mesh()
+            .x_desc("layer")
+            .y_desc("test accuracy")
+            .x_label_formatter(&|v| {
+                if (v - v.round()).abs() < 1e-9 {
+                    format!("{}", v.round())
+                } else {
+                    String::new()
+                }
+            })
+            .y_label_formatter(&|v| format!("{v:.1}"))
+            .label_style(text(12.0))
+            .axis_desc_style(text(13.0))
+            .max_light_lines(1)
+            .bold_line_style(RGBColor(222, 222, 222))
+            .light_line_style(RGBColor(242, 242, 242))
+            .draw()
+            .map_err(e2s)?;
+        type Getter = fn(&ProbeDelta) -> (f64, f64, f64);
+        let sides: [(&str, Getter); 2] = [
+            (&self.names.0, |d| (d.accuracy_a, d.ci_low_a, d.ci_high_a)),
+            (&self.names.1, |d| (d.accuracy_b, d.ci_low_b, d.ci_high_b)),
+        ];
+        for (s, (name, get)) in sides.iter().enumerate() {
+            let c = colours[s];
+            let mut band: Vec<(f64, f64)> = ds.iter().map(|d| (d.layer as f64, get(d).2)).collect();
+            band.extend(ds.iter().rev().map(|d| (d.layer as f64, get(d).1)));
+            chart
+                .draw_series(std::iter::once(Polygon::new(band, c.mix(0.22).filled())))
                 .map_err(e2s)?;
             chart
-                .configure_mesh()
-                .x_desc("layer")
-                .y_desc("test accuracy")
-                .x_label_formatter(&|v| {
-                    if (v - v.round()).abs() < 1e-9 {
-                        format!("{}", v.round())
-                    } else {
-                        String::new()
-                    }
-                })
-                .y_label_formatter(&|v| format!("{v:.1}"))
-                .label_style(text(12.0))
-                .axis_desc_style(text(13.0))
-                .max_light_lines(1)
-                .bold_line_style(RGBColor(222, 222, 222))
-                .light_line_style(RGBColor(242, 242, 242))
-                .draw()
+                .draw_series(LineSeries::new(
+                    ds.iter().map(|d| (d.layer as f64, get(d).0)),
+                    c.stroke_width(2),
+                ))
+                .map_err(e2s)?
+                .label(name.to_string())
+                .legend(move |(x, y)| {
+                    PathElement::new(vec![(x, y), (x + 18, y)], c.stroke_width(3))
+                });
+            chart
+                .draw_series(
+                    ds.iter()
+                        .map(|d| Circle::new((d.layer as f64, get(d).0), 3, c.filled())),
+                )
                 .map_err(e2s)?;
-            type Getter = fn(&ProbeDelta) -> (f64, f64, f64);
-            let sides: [(&str, Getter); 2] = [
-                (&self.names.0, |d| (d.accuracy_a, d.ci_low_a, d.ci_high_a)),
-                (&self.names.1, |d| (d.accuracy_b, d.ci_low_b, d.ci_high_b)),
-            ];
-            for (s, (name, get)) in sides.iter().enumerate() {
-                let c = colours[s];
-                let mut band: Vec<(f64, f64)> =
-                    ds.iter().map(|d| (d.layer as f64, get(d).2)).collect();
-                band.extend(ds.iter().rev().map(|d| (d.layer as f64, get(d).1)));
-                chart
-                    .draw_series(std::iter::once(Polygon::new(band, c.mix(0.22).filled())))
-                    .map_err(e2s)?;
-                chart
-                    .draw_series(LineSeries::new(
-                        ds.iter().map(|d| (d.layer as f64, get(d).0)),
-                        c.stroke_width(2),
-                    ))
-                    .map_err(e2s)?
-                    .label(name.to_string())
-                    .legend(move |(x, y)| {
-                        PathElement::new(vec![(x, y), (x + 18, y)], c.stroke_width(3))
-                    });
-                chart
-                    .draw_series(
-                        ds.iter()
-                            .map(|d| Circle::new((d.layer as f64, get(d).0), 3, c.filled())),
-                    )
-                    .map_err(e2s)?;
-            }
+        }
+        Ok(())
+    }
+}
+
+impl super::Figure for ProbeCurves {
+    fn size(&self) -> (u32, u32) {
+        let k = self.tasks.len() as u32;
+        (560 * k.min(3), 400 * k.div_ceil(3) + LEGEND_STRIP)
+    }
+
+    fn draw<DB: DrawingBackend>(&self, area: &DrawingArea<DB, Shift>) -> Result<(), String> {
+        let k = self.tasks.len();
+        let cols = k.min(3);
+        let rows = k.div_ceil(3);
+        let colours = category_colours(2);
+        // One legend above all panels, where it can never cover a curve.
+        let (top, body) = area.split_vertically(LEGEND_STRIP);
+        self.draw_legend(&top, &colours)?;
+        let panels = body.split_evenly((rows, cols));
+        for ((task, ds), panel) in self.tasks.iter().zip(panels.iter()) {
+            self.draw_panel(panel, task, ds, &colours)?;
         }
         Ok(())
     }
