@@ -160,7 +160,8 @@ class CaptureWriter:
                     raise ValueError(f"utterance '{utterance}', layer {i}: expected dim {want} (as the first utterance), found {d}")
         stored = []
         for i, a in enumerate(out):
-            s = np.ascontiguousarray(a, dtype=self.dtype)
+            with np.errstate(over="ignore"):
+                s = np.ascontiguousarray(a, dtype=self.dtype)
             if a.dtype.kind == "f" and not np.array_equal(np.isfinite(s), np.isfinite(a)):
                 raise ValueError(f"utterance '{utterance}', layer {i}: expected values that fit {self.dtype.name}, found values that overflow it")
             stored.append(s)
