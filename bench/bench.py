@@ -114,7 +114,7 @@ def example(name):
 
 def built(command):
     """A subcommand is built when the CLI no longer answers it with Error::NotYet."""
-    with open(os.path.join(ROOT, "src", "main.rs")) as f:
+    with open(os.path.join(ROOT, "src", "cli.rs")) as f:
         return f'Error::NotYet("{command}")' not in f.read()
 
 
@@ -451,11 +451,50 @@ def row_report_demo(quick):
     )
 
 
+def python_package():
+    """Whether the voxstrata Python package is installed in the bench environment."""
+    return subprocess.run([PY, "-c", "import voxstrata"], capture_output=True).returncode == 0
+
+
+def row_python_probe(quick):
+    """The Python package's probe on the demo's final capture, loaded with numpy, against the
+    command on the same folder: best of 3 wall times of each whole process, run alternately."""
+    root = demo_root(quick)
+    cap = os.path.join(root, "final")
+    out = os.path.join(OUT, "probe_python")
+    cli, py = [], []
+    for _ in range(3):
+        cli.append(timed([BIN, "--threads", "2", "--quiet", "probe", cap, "--out", out, "--force"],
+                         timeout=STOP * 30).check("probe"))
+        py.append(timed([PY, os.path.join(HERE, "py_probe.py"), cap, "2"], timeout=STOP * 30).check("python probe"))
+    best_cli = min(cli, key=lambda r: r.wall)
+    best_py = min(py, key=lambda r: r.wall)
+    got = best_py.json()
+    with open(os.path.join(out, "probe.json")) as f:
+        same = json.load(f)["records"] == got["records"]
+    added = best_py.wall / best_cli.wall - 1
+    return row(
+        f"Python `voxstrata.probe` on {os.path.relpath(cap, ROOT)} loaded with numpy, vs `voxstrata probe`",
+        reference="the command on the same folder",
+        ref_s=best_cli.wall,
+        ours_s=best_py.wall,
+        ref_mem=best_cli.rss_mib,
+        ours_mem=best_py.rss_mib,
+        quality=("records identical" if same else "records DIFFER")
+        + f"; Python side: import {got['import_s']:.2f} s, numpy load {got['load_s']:.2f} s, call {got['call_s']:.2f} s",
+        target="adds < 5% to the command's time, same records",
+        met=demo_met(quick, same and added < 0.05, f"{100 * added:+.1f}%"),
+        notes="whole processes, best of 3 each, run alternately, --threads 2 / threads=2; the command also draws "
+        "and writes its figures and files, the Python call returns records only",
+    )
+
+
 STOPPED_NAMES = {
     "row_demo_demo": ("`demo` generation", "< 2 min"),
     "row_probe_full": ("full `probe` on the demo's final capture", "< 30 s on 2 cores"),
     "row_map_demo": ("`map` on the demo's final capture", "< 60 s"),
     "row_report_demo": ("`report` on the demo", "< 90 s, peak < 1 GiB, page < 15 MB"),
+    "row_python_probe": ("Python `voxstrata.probe` vs `voxstrata probe`", "adds < 5%"),
 }
 
 
@@ -545,7 +584,7 @@ def render(rows, info, quick, load_before, load_after, blas, elapsed, versions):
 def main():
     ap = argparse.ArgumentParser()
     ap.add_argument("--quick", action="store_true")
-    ap.add_argument("--only", nargs="*", help="row numbers to run (1..7)")
+    ap.add_argument("--only", nargs="*", help="row numbers to run (1..8)")
     a = ap.parse_args()
     only = set(a.only or [])
     want = lambda n: not only or str(n) in only  # noqa: E731
@@ -618,6 +657,15 @@ def main():
                 add(7, attempt(7, globals()[f"row_{feat}_demo"], a.quick))
             else:
                 add(7, not_built(name, feat if not built(feat) else "demo", target))
+    if want(8):
+        name, target = "Python `voxstrata.probe` vs `voxstrata probe` on the demo", "adds < 5% to the command's time"
+        if demo_root(a.quick) is None:
+            add(8, not_built(name, "demo", target))
+        elif not python_package():
+            add(8, row(name, target=target, met="not measured",
+                       notes="not measured: the Python package is not installed in bench/.venv"))
+        else:
+            add(8, attempt(8, row_python_probe, a.quick))
     rows.sort(key=lambda r: r["id"])
     load_after = uptime()
     elapsed = time.perf_counter() - t0

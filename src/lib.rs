@@ -7,6 +7,7 @@
 
 pub mod analysis;
 pub mod capture;
+pub mod cli;
 pub mod commands;
 pub mod demo;
 pub mod error;
@@ -30,3 +31,19 @@ pub struct CommonOptions {
     /// Layer numbers to analyse (None: all).
     pub layers: Option<capture::LayerSelection>,
 }
+
+/// Run `f` on `threads` worker threads (0: rayon's global pool, all cores). A pool of its own
+/// rather than the global one, so a process (a Python session) can call this many times.
+pub fn with_threads<T: Send>(threads: usize, f: impl FnOnce() -> T + Send) -> Result<T> {
+    if threads == 0 {
+        return Ok(f());
+    }
+    let pool = rayon::ThreadPoolBuilder::new()
+        .num_threads(threads)
+        .build()
+        .map_err(|e| Error::Internal(e.to_string()))?;
+    Ok(pool.install(f))
+}
+
+/// The crate's version, as the command line's `--version` prints it.
+pub const VERSION: &str = env!("CARGO_PKG_VERSION");

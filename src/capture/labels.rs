@@ -430,6 +430,89 @@ pub fn read_frames_tsv(
     Ok(b.into_table(frame_utt, frame_pos, tasks))
 }
 
+/// Per-frame columns held in memory: the utterance and speaker of every frame, and label
+/// columns (None: unlabelled), in frame order.
+#[derive(Clone, Debug, Default)]
+pub struct FrameColumns {
+    /// Utterance name of each frame.
+    pub utterance: Vec<String>,
+    /// Speaker name of each frame.
+    pub speaker: Vec<String>,
+    /// Label columns: name and one value per frame.
+    pub labels: Vec<(String, Vec<Option<String>>)>,
+}
+
+/// The frame table of columns held in memory, built exactly as [`read_frames_tsv`] builds it
+/// from the same rows. `source` names the columns in messages, whose `row` is the 1-based
+/// frame number.
+pub fn frames_from_columns(
+    source: &Path,
+    c: &FrameColumns,
+    opts: &LabelOptions,
+) -> Result<FrameTable, CaptureError> {
+    let n = c.utterance.len();
+    let cols = Columns {
+        utterance: "utterance",
+        speaker: "speaker",
+    };
+    let mut head = vec!["utterance".to_string(), "speaker".to_string()];
+    head.extend(c.labels.iter().map(|(name, _)| name.clone()));
+    let lengths = std::iter::once(("speaker", c.speaker.len()))
+        .chain(c.labels.iter().map(|(name, v)| (name.as_str(), v.len())));
+    for (name, len) in lengths {
+        if len != n {
+            return Err(CaptureError::Table {
+                path: source.to_path_buf(),
+                row: len.min(n) + 1,
+                field: name.to_string(),
+                expected: format!("{n} values, one per frame"),
+                found: format!("{len} values"),
+            });
+        }
+    }
+    let mut sorted = head.clone();
+    sorted.sort();
+    if let Some(w) = sorted.windows(2).find(|w| w[0] == w[1]) {
+        return Err(CaptureError::Table {
+            path: source.to_path_buf(),
+            row: 1,
+            field: w[0].clone(),
+            expected: "each column name once (utterance and speaker are the groups)".into(),
+            found: format!("'{}' twice", w[0]),
+        });
+    }
+    let (_, _, task_cols) = frame_columns(source, &head, &cols, opts)?;
+    let mut b = Builder::new();
+    let (mut frame_utt, mut frame_pos) = (Vec::with_capacity(n), Vec::with_capacity(n));
+    let mut builders: Vec<TaskBuilder> = task_cols.iter().map(|_| TaskBuilder::new()).collect();
+    for i in 0..n {
+        let u = b.frame_utterance(source, i + 1, &cols, &c.utterance[i], &c.speaker[i])?;
+        frame_utt.push(u);
+        frame_pos.push(b.utt_len[u as usize]);
+        b.utt_len[u as usize] += 1;
+        for (tb, &col) in builders.iter_mut().zip(task_cols.iter()) {
+            let v = c.labels[col - 2].1[i].as_deref().unwrap_or("");
+            tb.push(clean(opts, v));
+        }
+    }
+    if n == 0 {
+        return Err(CaptureError::Table {
+            path: source.to_path_buf(),
+            row: 1,
+            field: "rows".into(),
+            expected: "one row per frame".into(),
+            found: "no frames".into(),
+        });
+    }
+    let mut tasks: Vec<LabelTask> = builders
+        .into_iter()
+        .zip(&task_cols)
+        .map(|(tb, &col)| tb.finish(&head[col]))
+        .collect();
+    tasks.push(speaker_task(&b, &frame_utt));
+    Ok(b.into_table(frame_utt, frame_pos, tasks))
+}
+
 /// The utterance and speaker columns of a `frames.tsv` header and its task columns (all the
 /// others, or those `opts.columns` names, each of which must exist).
 fn frame_columns(

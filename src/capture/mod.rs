@@ -250,6 +250,47 @@ impl Capture {
         Ok(cap)
     }
 
+    /// A capture of arrays held in memory: one 3-D (layers, frames, dim) array, or one 2-D
+    /// (frames, dim) array per layer (numbered from 0), with their frame table. `name` stands
+    /// for the folder in messages and records. Checked like a capture on disk.
+    pub fn in_memory(
+        name: &str,
+        arrays: Vec<NpyFile>,
+        frames: FrameTable,
+        allow_nonfinite: bool,
+    ) -> Result<Capture, CaptureError> {
+        let dir = PathBuf::from(name);
+        let layers = match arrays.len() {
+            0 => {
+                return Err(CaptureError::invalid(
+                    &dir,
+                    "layers",
+                    "at least one array",
+                    "none",
+                ))
+            }
+            1 if arrays[0].header().shape.len() == 3 => {
+                let one = arrays.into_iter().next().expect("one array");
+                stack_sources(std::sync::Arc::new(one))?
+            }
+            _ => per_file_layers_of(arrays.into_iter().enumerate().collect())?,
+        };
+        check_layers_match(&layers, frames.n_frames(), "labels")?;
+        let mut cap = Capture {
+            dir,
+            name: name.to_string(),
+            config: CaptureConfig::default(),
+            layers,
+            frames,
+            nonfinite_frames: vec![],
+            label_source: "in memory".to_string(),
+        };
+        if allow_nonfinite {
+            cap.mask_nonfinite_frames();
+        }
+        Ok(cap)
+    }
+
     /// Mark the frames with a non-finite value in any layer unlabelled in every task, and
     /// list them.
     fn mask_nonfinite_frames(&mut self) {
@@ -579,7 +620,13 @@ fn list_layer_files(
 
 /// The layers of a single-file capture: one 3-D (layers, frames, dim) `.npy` stack.
 fn stack_layers(p: &Path) -> Result<Vec<LayerSource>, CaptureError> {
-    let f = std::sync::Arc::new(NpyFile::open(p)?);
+    stack_sources(std::sync::Arc::new(NpyFile::open(p)?))
+}
+
+/// One source per layer of a 3-D (layers, frames, dim) array.
+fn stack_sources(f: std::sync::Arc<NpyFile>) -> Result<Vec<LayerSource>, CaptureError> {
+    let p = f.path().to_path_buf();
+    let p = p.as_path();
     if f.header().shape.len() != 3 {
         return Err(CaptureError::invalid(
             p,
@@ -632,22 +679,31 @@ fn per_file_layers(mut entries: NumberedFiles) -> Result<Vec<LayerSource>, Captu
     }
     let mut out = Vec::with_capacity(entries.len());
     for (id, p) in entries {
-        let f = NpyFile::open(&p)?;
-        if f.header().shape.len() != 2 {
-            return Err(CaptureError::invalid(
-                &p,
-                "shape",
-                "a 2-D (frames, dim) array",
-                format!("{}-D {:?}", f.header().shape.len(), f.header().shape),
-            ));
-        }
-        out.push(LayerSource {
-            id,
-            file: std::sync::Arc::new(f),
-            slot: 0,
-        });
+        out.push(source_2d(id, NpyFile::open(&p)?)?);
     }
     Ok(out)
+}
+
+/// One source per numbered 2-D (frames, dim) array.
+fn per_file_layers_of(files: Vec<(usize, NpyFile)>) -> Result<Vec<LayerSource>, CaptureError> {
+    files.into_iter().map(|(id, f)| source_2d(id, f)).collect()
+}
+
+/// The source of layer `id` held in a 2-D (frames, dim) array.
+fn source_2d(id: usize, f: NpyFile) -> Result<LayerSource, CaptureError> {
+    if f.header().shape.len() != 2 {
+        return Err(CaptureError::invalid(
+            f.path(),
+            "shape",
+            "a 2-D (frames, dim) array",
+            format!("{}-D {:?}", f.header().shape.len(), f.header().shape),
+        ));
+    }
+    Ok(LayerSource {
+        id,
+        file: std::sync::Arc::new(f),
+        slot: 0,
+    })
 }
 
 /// A set of layer numbers parsed from `0,4-8`.

@@ -418,12 +418,31 @@ impl Parser<'_> {
     }
 }
 
-/// A memory-mapped `.npy` file holding one 2-D layer or a 3-D stack of layers.
+/// Bytes of an array that lives in memory and is owned elsewhere (a Python buffer, a `Vec`).
+pub type SharedBytes = std::sync::Arc<dyn AsRef<[u8]> + Send + Sync>;
+
+/// Where an array's bytes are: a read-only file mapping, or memory owned elsewhere.
+enum Storage {
+    Map(Mmap),
+    Memory(SharedBytes),
+}
+
+impl std::fmt::Debug for Storage {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        match self {
+            Storage::Map(m) => write!(f, "Map({} bytes)", m.len()),
+            Storage::Memory(b) => write!(f, "Memory({} bytes)", (**b).as_ref().len()),
+        }
+    }
+}
+
+/// A memory-mapped `.npy` file holding one 2-D layer or a 3-D stack of layers, or an array
+/// of the same shape held in memory ([`NpyFile::from_memory`]).
 #[derive(Debug)]
 pub struct NpyFile {
     path: PathBuf,
     header: NpyHeader,
-    map: Option<Mmap>,
+    map: Option<Storage>,
     file_len: u64,
 }
 
@@ -446,8 +465,38 @@ impl NpyFile {
         Ok(NpyFile {
             path: path.to_path_buf(),
             header,
-            map: if data_len == 0 { None } else { Some(map) },
+            map: if data_len == 0 {
+                None
+            } else {
+                Some(Storage::Map(map))
+            },
             file_len,
+        })
+    }
+
+    /// An array held in memory, read like a file: `header` describes `bytes` (its
+    /// `data_offset` must be 0), and `name` stands for the path in messages. The data size
+    /// is checked against the shape as for a file.
+    pub fn from_memory(
+        name: &Path,
+        header: NpyHeader,
+        bytes: SharedBytes,
+    ) -> Result<NpyFile, CaptureError> {
+        let len = (*bytes).as_ref().len() as u64;
+        if header.data_offset != 0 {
+            return Err(bad(
+                name,
+                "data offset",
+                "0",
+                header.data_offset.to_string(),
+            ));
+        }
+        check_data_size(name, &header, len)?;
+        Ok(NpyFile {
+            path: name.to_path_buf(),
+            header,
+            map: (len > 0).then_some(Storage::Memory(bytes)),
+            file_len: len,
         })
     }
 
@@ -468,7 +517,8 @@ impl NpyFile {
 
     fn data(&self) -> &[u8] {
         match &self.map {
-            Some(m) => &m[self.header.data_offset..],
+            Some(Storage::Map(m)) => &m[self.header.data_offset..],
+            Some(Storage::Memory(b)) => (**b).as_ref(),
             None => &[],
         }
     }
@@ -621,7 +671,7 @@ impl NpyFile {
 
     /// Drop the pages holding data elements `lo..hi` (storage order) from the resident set.
     fn release_elems(&self, lo: usize, hi: usize) {
-        if let Some(m) = &self.map {
+        if let Some(Storage::Map(m)) = &self.map {
             let sz = self.header.dtype.size();
             let start = self.header.data_offset + lo * sz;
             let len = (hi - lo) * sz;
@@ -649,7 +699,7 @@ impl NpyFile {
     /// Drop this file's pages from the process's resident set (they are re-read from the
     /// page cache on the next access), so only the layer being worked on stays resident.
     pub fn release(&self) {
-        if let Some(m) = &self.map {
+        if let Some(Storage::Map(m)) = &self.map {
             // SAFETY: the mapping is a read-only file mapping; after MADV_DONTNEED the kernel
             // refills pages from the file on access, so the contents seen do not change.
             unsafe {
