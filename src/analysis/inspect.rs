@@ -3,7 +3,7 @@
 //! sampled scan (constant columns, NaN/Inf, classes too small to probe).
 
 use crate::capture::{Capture, LabelTask, UNLABELLED};
-pub use crate::records::inspect::{ClassCount, LayerInfo, Summary, TaskInfo};
+pub use crate::records::inspect::{ClassCount, LayerInfo, NumericInfo, Summary, TaskInfo};
 
 /// Frames read per layer by the sampled scan.
 pub const SCAN_ROWS: usize = 4096;
@@ -22,6 +22,25 @@ pub fn summarise(cap: &Capture) -> Summary {
         .iter()
         .map(|t| task_info(cap, t, &mut warnings))
         .collect();
+    let continuous = cap
+        .frames
+        .continuous
+        .iter()
+        .map(|t| {
+            let (min, max, mean) = t.range_mean();
+            let labelled = t.n_labelled();
+            NumericInfo {
+                column: t.name.clone(),
+                kind: "continuous".into(),
+                labelled_frames: labelled,
+                missing_frames: cap.n_frames() - labelled,
+                min,
+                max,
+                mean,
+            }
+        })
+        .collect();
+    warnings.extend(cap.label_notes.iter().cloned());
     if cap.frames.speakers.len() < 2 {
         warnings.push(
             "only one speaker: speaker-disjoint probes are impossible (use --split utterance)"
@@ -47,6 +66,7 @@ pub fn summarise(cap: &Capture) -> Summary {
         speakers: cap.frames.speakers.len(),
         layers,
         tasks,
+        continuous,
         bytes_on_disk: cap.bytes_on_disk(),
         // One resident layer in f32, a standardised training copy, and working space.
         probe_memory_estimate: 2 * layer_f32 + (200 << 20),
@@ -146,6 +166,7 @@ fn task_info(cap: &Capture, t: &LabelTask, warnings: &mut Vec<String>) -> TaskIn
     let unl = t.codes.iter().filter(|&&c| c == UNLABELLED).count();
     TaskInfo {
         task: t.name.clone(),
+        kind: "categorical".into(),
         classes: counts.len(),
         labelled_frames: cap.n_frames() - unl,
         unlabelled_frames: unl,

@@ -140,6 +140,34 @@ pub fn knn_lists(p: &Points, k: usize) -> Vec<Vec<u32>> {
     p.map_rows(|i, d| nearest(i, d, k, |_| true))
 }
 
+/// k-NN regression R² of a continuous label: each frame with a value is predicted by the mean
+/// value of its `k` nearest frames that have one, and `1 − SS_res / SS_tot` is taken over
+/// those frames (SS_tot about their mean). None with fewer than `k + 2` valued frames or
+/// constant values.
+pub fn knn_r2(p: &Points, values: &[f32], k: usize) -> Option<f64> {
+    let valued: Vec<bool> = values.iter().map(|v| v.is_finite()).collect();
+    let n_valued = valued.iter().filter(|&&b| b).count();
+    if k == 0 || n_valued < k + 2 {
+        return None;
+    }
+    let preds: Vec<Option<f64>> = p.map_rows(|i, d| {
+        if !valued[i] {
+            return None;
+        }
+        let nb = nearest(i, d, k, |j| valued[j]);
+        Some(nb.iter().map(|&j| values[j as usize] as f64).sum::<f64>() / nb.len() as f64)
+    });
+    let pairs: Vec<(f64, f64)> = preds
+        .iter()
+        .zip(values)
+        .filter_map(|(p, &v)| p.map(|p| (v as f64, p)))
+        .collect();
+    let mean = pairs.iter().map(|(t, _)| t).sum::<f64>() / pairs.len() as f64;
+    let ss_tot: f64 = pairs.iter().map(|(t, _)| (t - mean) * (t - mean)).sum();
+    let ss_res: f64 = pairs.iter().map(|(t, p)| (t - p) * (t - p)).sum();
+    (ss_tot > 0.0).then(|| 1.0 - ss_res / ss_tot)
+}
+
 /// Silhouette of one labelling, with the labels skipped for having a single frame.
 #[derive(Clone, Debug, PartialEq)]
 pub struct Silhouette {
@@ -563,6 +591,27 @@ pub fn kmeans(x: &ArrayView2<f32>, k: usize, seed: u64, max_iter: usize) -> Vec<
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn knn_r2_is_high_on_a_smooth_line_and_near_zero_for_shuffled_values() {
+        // Points on a line with value = position: neighbours share the value (R² near 1);
+        // values unrelated to position: the neighbour mean predicts no better than the mean
+        // (R² at or below 0). The definition of R²; values by construction.
+        let n = 400;
+        let x =
+            ndarray::Array2::from_shape_fn((n, 2), |(i, j)| if j == 0 { i as f32 } else { 0.0 });
+        let smooth: Vec<f32> = (0..n).map(|i| i as f32).collect();
+        let p = Points::new(&x.view());
+        let r = knn_r2(&p, &smooth, 5).unwrap();
+        assert!(r > 0.99, "{r}");
+        let scrambled: Vec<f32> = (0..n).map(|i| ((i * 7919) % 401) as f32).collect();
+        let r = knn_r2(&p, &scrambled, 5).unwrap();
+        assert!(r < 0.1, "{r}");
+        let mut holes = smooth.clone();
+        holes[3] = f32::NAN;
+        assert!(knn_r2(&p, &holes, 5).unwrap() > 0.99);
+        assert!(knn_r2(&p, &[f32::NAN; 400], 5).is_none());
+    }
     use ndarray::array;
 
     #[test]

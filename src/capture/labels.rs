@@ -54,8 +54,11 @@ pub struct FrameTable {
     pub frame_utt: Vec<u32>,
     /// Index of each frame within its utterance.
     pub frame_pos: Vec<u32>,
-    /// Label tasks; always includes `speaker` (last), plus every other label column.
+    /// Categorical label tasks; always includes `speaker` (last), plus every other
+    /// categorical label column.
     pub tasks: Vec<LabelTask>,
+    /// Continuous label columns (see [`super::kinds`]), filled when the capture is opened.
+    pub continuous: Vec<super::kinds::NumericTask>,
 }
 
 impl FrameTable {
@@ -102,6 +105,18 @@ impl FrameTable {
                 }
             }
         }
+        for t in &mut self.continuous {
+            for (v, &b) in t.values.iter_mut().zip(bad) {
+                if b {
+                    *v = f32::NAN;
+                }
+            }
+        }
+    }
+
+    /// The continuous column of that name.
+    pub fn numeric(&self, name: &str) -> Option<&super::kinds::NumericTask> {
+        self.continuous.iter().find(|t| t.name == name)
     }
 }
 
@@ -357,6 +372,7 @@ impl Builder {
             frame_utt,
             frame_pos,
             tasks,
+            continuous: vec![],
         }
     }
 }

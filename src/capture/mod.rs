@@ -4,6 +4,7 @@
 //! Opening a capture reads headers and label tables only; layer data stays memory-mapped and
 //! is converted to `f32` one layer at a time when an analysis asks for it.
 
+pub mod kinds;
 pub mod labels;
 pub mod npy;
 
@@ -13,6 +14,7 @@ use std::path::{Path, PathBuf};
 use ndarray::Array2;
 use serde::{Deserialize, Serialize};
 
+pub use kinds::{ColumnKind, NumericTask};
 pub use labels::{FrameTable, LabelOptions, LabelTask, Timing, UNLABELLED};
 pub use npy::{Dtype, NpyFile};
 
@@ -116,6 +118,9 @@ pub struct CaptureConfig {
     pub segment_label: String,
     /// Free-form notes (model, data, accuracy); shown by `inspect` and in reports.
     pub notes: BTreeMap<String, toml::Value>,
+    /// Declared kinds of label columns (`continuous`, `categorical` or `ignore`); columns
+    /// not named here are classified by their values.
+    pub columns: BTreeMap<String, ColumnKind>,
 }
 
 impl Default for CaptureConfig {
@@ -131,6 +136,7 @@ impl Default for CaptureConfig {
             speaker_column: "speaker".into(),
             segment_label: "phone".into(),
             notes: BTreeMap::new(),
+            columns: BTreeMap::new(),
         }
     }
 }
@@ -202,6 +208,8 @@ pub struct Capture {
     pub nonfinite_frames: Vec<usize>,
     /// Label source: `frames.tsv` or `segments.tsv`.
     pub label_source: String,
+    /// Notes from reading the labels (non-finite values in continuous columns, overrides).
+    pub label_notes: Vec<String>,
 }
 
 /// Parse a pattern like `layer_{}.npy` against a file name, returning the layer number.
@@ -233,8 +241,14 @@ impl Capture {
         });
 
         let layers = find_layers(dir, &config)?;
-        let (frames, label_source) = read_labels(dir, &config, opts, &layers)?;
+        let (mut frames, label_source) = read_labels(dir, &config, opts, &layers)?;
         check_layers_match(&layers, frames.n_frames(), &label_source)?;
+        let (source, first_row) = if label_source == "frames.tsv" {
+            (dir.join("frames.tsv"), Some(2))
+        } else {
+            (dir.join("capture.toml"), None)
+        };
+        let label_notes = kinds::classify(&mut frames, &config.columns, &source, first_row)?;
         let mut cap = Capture {
             dir: dir.to_path_buf(),
             name,
@@ -243,6 +257,7 @@ impl Capture {
             frames,
             nonfinite_frames: vec![],
             label_source,
+            label_notes,
         };
         if opts.allow_nonfinite {
             cap.mask_nonfinite_frames();
@@ -443,6 +458,7 @@ fn empty_table() -> FrameTable {
         frame_utt: vec![],
         frame_pos: vec![],
         tasks: vec![],
+        continuous: vec![],
     }
 }
 

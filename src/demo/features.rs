@@ -88,6 +88,24 @@ impl FrontEnd {
         }
     }
 
+    /// Frame energy in dB relative to a full-scale sine's mean square of 0.5: ten times the
+    /// log10 of the Hamming-windowed mean square over 0.5 (common practice), one per frame.
+    pub fn energy_db(&self, x: &[f32]) -> Vec<f32> {
+        let nf = Self::n_frames(x.len());
+        let norm: f32 = self.window.iter().map(|w| w * w).sum();
+        (0..nf)
+            .map(|f| {
+                let s = &x[f * HOP..f * HOP + WIN];
+                let e: f32 = s
+                    .iter()
+                    .zip(&self.window)
+                    .map(|(v, w)| (v * w) * (v * w))
+                    .sum();
+                10.0 * ((e / norm + 1e-12) / 0.5).log10()
+            })
+            .collect()
+    }
+
     /// 40 log-mel values per frame, frames in order (row-major, frames × 40).
     pub fn log_mel(&self, x: &[f32]) -> Vec<f32> {
         let nf = Self::n_frames(x.len());

@@ -149,6 +149,10 @@ struct Utterance {
     feats: Array2<f32>,
     /// Phone index per frame.
     phones: Vec<usize>,
+    /// F0 in Hz at each frame's centre; NaN where the source is not voiced there.
+    f0: Vec<f32>,
+    /// Frame energy in dB (see [`FrontEnd::energy_db`]).
+    energy_db: Vec<f32>,
 }
 
 /// Network inputs and labels of the training and held-out talkers.
@@ -292,13 +296,16 @@ fn synthesise_all(
             let talker = &talkers[t];
             let mut rng = ChaCha8Rng::seed_from_u64(sub_seed(seed, 2, (t * 100_000 + u) as u64));
             let segs = synth::draw_phones(talker, &mut rng);
-            let wave = synth::synthesise(talker, &segs, &mut rng);
+            let synth::Synthesised { wave, f0 } = synth::synthesise(talker, &segs, &mut rng);
             let mel = fe.log_mel(&wave);
+            let energy_db = fe.energy_db(&wave);
             let nf = mel.len() / N_MEL;
             let feats =
                 Array2::from_shape_vec((nf, N_MEL), mel).expect("frames × 40 by construction");
-            let phones = (0..nf)
-                .map(|i| synth::phone_at(&segs, i * features::HOP + features::WIN / 2))
+            let centre = |i: usize| i * features::HOP + features::WIN / 2;
+            let phones = (0..nf).map(|i| synth::phone_at(&segs, centre(i))).collect();
+            let f0 = (0..nf)
+                .map(|i| f0.get(centre(i)).copied().unwrap_or(f32::NAN))
                 .collect();
             step.inc(1);
             Utterance {
@@ -306,6 +313,8 @@ fn synthesise_all(
                 talker: t,
                 feats,
                 phones,
+                f0,
+                energy_db,
             }
         })
         .collect()
@@ -428,18 +437,26 @@ fn epoch_optimiser(epoch: usize, epochs: usize) -> Adam {
 
 /// `frames.tsv`, shared by both captures: one row per captured frame.
 fn frame_table(utts: &[Utterance], talkers: &[Talker], cap_utts: &[usize]) -> String {
-    let mut tsv = String::from("utterance\tspeaker\tphone\tgroup\n");
+    let mut tsv = String::from("utterance\tspeaker\tphone\tgroup\tf0_hz\tenergy_db\n");
     for &i in cap_utts {
         let u = &utts[i];
         let t = &talkers[u.talker];
-        for &p in &u.phones {
+        for (k, &p) in u.phones.iter().enumerate() {
+            // F0 only where the frame is voiced and not silence; empty means no value.
+            let f0 = u.f0[k];
+            let f0 = if p != 0 && f0.is_finite() {
+                format!("{f0:.1}")
+            } else {
+                String::new()
+            };
             let _ = writeln!(
                 tsv,
-                "{}\t{}\t{}\t{}",
+                "{}\t{}\t{}\t{}\t{f0}\t{:.1}",
                 u.name,
                 t.name,
                 PHONES[p],
-                t.group.label()
+                t.group.label(),
+                u.energy_db[k]
             );
         }
     }

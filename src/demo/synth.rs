@@ -406,15 +406,32 @@ fn interp(keys: &[(f64, [f64; 5])], t: f64) -> [f64; 5] {
     }
 }
 
+/// A synthesised utterance: its samples and, per sample, the fundamental frequency of the
+/// glottal source where the voicing amplitude is at least half its full level (NaN elsewhere).
+pub struct Synthesised {
+    /// Samples at [`FS`].
+    pub wave: Vec<f32>,
+    /// F0 in Hz per sample (the declining contour, without jitter); NaN where unvoiced.
+    pub f0: Vec<f32>,
+}
+
 /// Synthesise the samples of an utterance from its phone segments.
-pub fn synthesise(talker: &Talker, segs: &[Segment], rng: &mut ChaCha8Rng) -> Vec<f32> {
+pub fn synthesise(talker: &Talker, segs: &[Segment], rng: &mut ChaCha8Rng) -> Synthesised {
     let n = segs.last().map(|s| s.end).unwrap_or(0);
     let ramp = (0.012 * FS) as usize;
     let (voice, fric) = amplitudes(segs, n, ramp);
-    let src = glottal_source(talker, &voice, rng);
+    let (src, contour) = glottal_source(talker, &voice, rng);
     let mut out = formant_cascade(talker, segs, &src);
     add_fricatives(talker, segs, &fric, ramp, &mut out, rng);
-    finish(talker, &out, rng)
+    let f0 = contour
+        .iter()
+        .zip(&voice)
+        .map(|(&f, &v)| if v >= 0.5 { f as f32 } else { f32::NAN })
+        .collect();
+    Synthesised {
+        wave: finish(talker, &out, rng),
+        f0,
+    }
 }
 
 /// Voicing and frication amplitude per sample (`n` samples): each segment's envelope, ramped
@@ -442,12 +459,13 @@ fn amplitudes(segs: &[Segment], n: usize, ramp: usize) -> (Vec<f64>, Vec<f64>) {
 
 /// Glottal source: Rosenberg pulses with jitter and shimmer, F0 declining over the
 /// utterance, differentiated for lip radiation, plus aspiration noise while open; scaled by
-/// the voicing amplitude `voice`.
-fn glottal_source(talker: &Talker, voice: &[f64], rng: &mut ChaCha8Rng) -> Vec<f64> {
+/// the voicing amplitude `voice`. Also returns the F0 contour per sample (Hz, no jitter).
+fn glottal_source(talker: &Talker, voice: &[f64], rng: &mut ChaCha8Rng) -> (Vec<f64>, Vec<f64>) {
     let n = voice.len();
     let utt_f0 = talker.f0 * (1.0 + 0.05 * normal(rng));
     let mut src = vec![0f64; n];
     let mut open = vec![0f64; n];
+    let mut contour = vec![0f64; n];
     let mut t = 0usize;
     while t < n {
         let decl = 1.0 + 0.08 * (0.5 - t as f64 / n as f64);
@@ -470,6 +488,7 @@ fn glottal_source(talker: &Talker, voice: &[f64], rng: &mut ChaCha8Rng) -> Vec<f
             };
             src[t + k] = amp * g;
             open[t + k] = g;
+            contour[t + k] = utt_f0 * decl;
         }
         t += p;
     }
@@ -482,7 +501,7 @@ fn glottal_source(talker: &Talker, voice: &[f64], rng: &mut ChaCha8Rng) -> Vec<f
         lp = (1.0 - talker.tilt) * (d + asp) + talker.tilt * lp;
         src[i] = lp * voice[i];
     }
-    src
+    (src, contour)
 }
 
 /// Cascade of five formant resonators over `src`, with tracks updated every millisecond.

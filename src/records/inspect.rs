@@ -35,6 +35,8 @@ pub struct ClassCount {
 pub struct TaskInfo {
     /// Task (column) name.
     pub task: String,
+    /// Always `categorical` (continuous columns are in `continuous`).
+    pub kind: String,
     /// Number of classes.
     pub classes: usize,
     /// Frames with a label.
@@ -45,6 +47,28 @@ pub struct TaskInfo {
     pub smallest: Vec<ClassCount>,
     /// Up to three largest classes.
     pub largest: Vec<ClassCount>,
+}
+
+/// One continuous label column in the summary.
+#[derive(Debug, Serialize, Deserialize)]
+pub struct NumericInfo {
+    /// Column name.
+    pub column: String,
+    /// Always `continuous`.
+    pub kind: String,
+    /// Frames with a finite value.
+    pub labelled_frames: usize,
+    /// Frames without one (empty, `nan` or `inf`).
+    pub missing_frames: usize,
+    /// Smallest value.
+    #[serde(deserialize_with = "crate::records::nan::f64")]
+    pub min: f64,
+    /// Largest value.
+    #[serde(deserialize_with = "crate::records::nan::f64")]
+    pub max: f64,
+    /// Mean value.
+    #[serde(deserialize_with = "crate::records::nan::f64")]
+    pub mean: f64,
 }
 
 /// What `inspect` reports.
@@ -67,8 +91,11 @@ pub struct Summary {
     pub speakers: usize,
     /// Layers.
     pub layers: Vec<LayerInfo>,
-    /// Label tasks.
+    /// Categorical label tasks.
     pub tasks: Vec<TaskInfo>,
+    /// Continuous label columns.
+    #[serde(default)]
+    pub continuous: Vec<NumericInfo>,
     /// Bytes of layer files on disk.
     pub bytes_on_disk: u64,
     /// Estimated peak memory of a probe run, in bytes.

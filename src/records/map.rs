@@ -39,6 +39,13 @@ pub struct PurityRecord {
     /// between this label's values inside each phone, Σ_p Σ_v n_pv ‖mean_pv − mean_p‖² /
     /// Σ ‖x − mean‖² (None for `phone` itself, or without a phone column).
     pub within_phone_share: Option<f64>,
+    /// For continuous labels only: R² of predicting each frame's value by the mean of its k
+    /// nearest neighbours in the full space (null for categorical labels).
+    #[serde(default)]
+    pub knn_r2: Option<f64>,
+    /// The same on the 2-D map.
+    #[serde(default)]
+    pub knn_r2_2d: Option<f64>,
 }
 
 /// One layer's map.
@@ -70,6 +77,10 @@ pub struct SampleLabels {
     pub classes: Vec<String>,
     /// Code per sampled frame (`UNLABELLED` where none).
     pub codes: Vec<u32>,
+    /// For a continuous label: the value per sampled frame (NaN where none); `classes` is
+    /// then empty and every code `UNLABELLED`.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub values: Option<Vec<f32>>,
 }
 
 /// The headline of a map run.

@@ -8,7 +8,8 @@ use rand::seq::SliceRandom;
 use rand::SeedableRng;
 use rand_chacha::ChaCha8Rng;
 
-use super::{category_colours, e2s, palette::OTHER, text, Figure, FONT};
+use super::palette::{value_ramp, OTHER};
+use super::{category_colours, e2s, text, Figure, FONT};
 use crate::capture::UNLABELLED;
 use crate::records::map::{MapReport, PurityRecord, SampleLabels};
 
@@ -22,8 +23,10 @@ const LEGEND_W: u32 = 190;
 pub struct MapGrid<'a> {
     report: &'a MapReport,
     labels: &'a SampleLabels,
-    /// Legend entries: (name, colour), in legend order.
+    /// Legend entries: (name, colour), in legend order (empty for a continuous label).
     entries: Vec<(String, RGBColor)>,
+    /// For a continuous label: the value range of the colour bar (1st to 99th percentile).
+    bar: Option<(f64, f64)>,
     /// Colour of each sampled frame (None: unlabelled, drawn grey).
     colour_of: Vec<RGBColor>,
     order: Vec<usize>,
@@ -34,6 +37,133 @@ pub struct MapGrid<'a> {
 impl<'a> MapGrid<'a> {
     /// Prepare the figure for one label.
     pub fn new(report: &'a MapReport, labels: &'a SampleLabels) -> Self {
+        let (entries, colour_of, bar) = match &labels.values {
+            Some(v) => {
+                let (lo, hi) = clip_range(v);
+                let colour_of = v
+                    .iter()
+                    .map(|&x| {
+                        if x.is_finite() {
+                            value_ramp((x as f64 - lo) / (hi - lo).max(1e-12))
+                        } else {
+                            OTHER
+                        }
+                    })
+                    .collect();
+                (vec![], colour_of, Some((lo, hi)))
+            }
+            None => {
+                let (entries, colour_of) = class_colours(labels);
+                (entries, colour_of, None)
+            }
+        };
+        // draw in a shuffled order so no class sits on top of all the others
+        let mut order: Vec<usize> = (0..labels.codes.len()).collect();
+        order.shuffle(&mut ChaCha8Rng::seed_from_u64(17));
+        if let Some(v) = &labels.values {
+            // frames without a value first, so grey never covers a coloured point
+            order.sort_by_key(|&i| v[i].is_finite());
+        }
+        let np = report.layers.len().max(1) as u32;
+        let cols = match np {
+            1..=3 => np,
+            4 => 2,
+            5..=9 => 3,
+            10..=16 => 4,
+            _ => 5,
+        };
+        let rows = np.div_ceil(cols);
+        MapGrid {
+            report,
+            labels,
+            entries,
+            bar,
+            colour_of,
+            order,
+            cols,
+            rows,
+        }
+    }
+
+    /// The colour bar of a continuous label, in the legend column.
+    fn draw_bar<DB: DrawingBackend>(
+        &self,
+        legend: &DrawingArea<DB, Shift>,
+        (lo, hi): (f64, f64),
+    ) -> Result<(), String> {
+        let (top, height) = (40, 220);
+        for i in 0..height {
+            let t = 1.0 - i as f64 / (height - 1) as f64;
+            legend
+                .draw(&Rectangle::new(
+                    [(10, top + i), (34, top + i + 1)],
+                    value_ramp(t).filled(),
+                ))
+                .map_err(e2s)?;
+        }
+        for (k, v) in [(0, hi), (1, (lo + hi) / 2.0), (2, lo)] {
+            let y = top + k * (height - 1) / 2;
+            legend
+                .draw(&PathElement::new(vec![(34, y), (40, y)], BLACK))
+                .map_err(e2s)?;
+            legend
+                .draw(&Text::new(short(v), (44, y - 7), text(13.0)))
+                .map_err(e2s)?;
+        }
+        let note = [
+            "1st–99th percentile;",
+            "beyond: end colours;",
+            "grey: no value",
+        ];
+        for (i, line) in note.iter().enumerate() {
+            legend
+                .draw(&Text::new(
+                    line.to_string(),
+                    (8, top + height + 14 + 17 * i as i32),
+                    text(12.0).color(&RGBColor(90, 90, 90)),
+                ))
+                .map_err(e2s)?;
+        }
+        Ok(())
+    }
+}
+
+/// A value with three significant digits for the colour bar.
+fn short(v: f64) -> String {
+    let mag = if v == 0.0 {
+        0
+    } else {
+        v.abs().log10().floor() as i32
+    };
+    let decimals = (2 - mag).clamp(0, 4) as usize;
+    format!("{v:.decimals$}")
+}
+
+/// The 1st and 99th percentiles of the finite values (the colour range; values outside take
+/// the end colours). (0, 1) when there are none.
+pub fn clip_range(v: &[f32]) -> (f64, f64) {
+    let mut f: Vec<f64> = v
+        .iter()
+        .filter(|x| x.is_finite())
+        .map(|&x| x as f64)
+        .collect();
+    if f.is_empty() {
+        return (0.0, 1.0);
+    }
+    f.sort_by(f64::total_cmp);
+    let q = |p: f64| crate::analysis::stats::quantile_sorted(&f, p);
+    let (lo, hi) = (q(0.01), q(0.99));
+    if hi > lo {
+        (lo, hi)
+    } else {
+        (lo - 0.5, lo + 0.5)
+    }
+}
+
+/// Legend entries and per-frame colours of a categorical label: the most frequent classes
+/// get their own colour (beyond [`MAX_LEGEND`], the rest share a grey "other").
+fn class_colours(labels: &SampleLabels) -> (Vec<(String, RGBColor)>, Vec<RGBColor>) {
+    {
         let mut counts = vec![0usize; labels.classes.len()];
         for &c in &labels.codes {
             if c != UNLABELLED {
@@ -71,33 +201,18 @@ impl<'a> MapGrid<'a> {
                 }
             })
             .collect();
-        // draw in a shuffled order so no class sits on top of all the others
-        let mut order: Vec<usize> = (0..labels.codes.len()).collect();
-        order.shuffle(&mut ChaCha8Rng::seed_from_u64(17));
-        let np = report.layers.len().max(1) as u32;
-        let cols = match np {
-            1..=3 => np,
-            4 => 2,
-            5..=9 => 3,
-            10..=16 => 4,
-            _ => 5,
-        };
-        let rows = np.div_ceil(cols);
-        MapGrid {
-            report,
-            labels,
-            entries,
-            colour_of,
-            order,
-            cols,
-            rows,
-        }
+        (entries, colour_of)
     }
 }
 
 impl Figure for MapGrid<'_> {
     fn size(&self) -> (u32, u32) {
-        let legend_rows = self.entries.len() as u32 * 20 + 60;
+        // the colour bar and its three note lines need about 380 px under the title strip
+        let legend_rows = if self.bar.is_some() {
+            380
+        } else {
+            self.entries.len() as u32 * 20 + 60
+        };
         (
             self.cols * PANEL + LEGEND_W + 20,
             (self.rows * PANEL + 50).max(legend_rows),
@@ -182,6 +297,9 @@ impl Figure for MapGrid<'_> {
         legend
             .draw(&Text::new(self.labels.name.clone(), (6, 8), text(15.0)))
             .map_err(e2s)?;
+        if let Some(range) = self.bar {
+            return self.draw_bar(&legend, range);
+        }
         for (i, (name, c)) in self.entries.iter().enumerate() {
             let y = 34 + i as i32 * 20;
             legend
@@ -213,7 +331,7 @@ impl<'a> PurityCurves<'a> {
 
 type Getter = fn(&PurityRecord) -> Option<f64>;
 
-const METRICS: [(&str, Getter); 9] = [
+const METRICS: [(&str, Getter); 11] = [
     ("k-NN purity (full space)", |r| r.knn_purity),
     ("k-NN purity (2-D map)", |r| r.knn_purity_2d),
     ("silhouette", |r| r.silhouette),
@@ -223,11 +341,25 @@ const METRICS: [(&str, Getter); 9] = [
     ("label purity (k-means)", |r| r.label_purity),
     ("cluster purity (k-means)", |r| r.cluster_purity),
     ("PNMI (k-means)", |r| r.pnmi),
+    ("k-NN R² of values (full space)", |r| r.knn_r2),
+    ("k-NN R² of values (2-D map)", |r| r.knn_r2_2d),
 ];
+
+impl PurityCurves<'_> {
+    /// Panels drawn: the nine class metrics, and the two value metrics when a continuous
+    /// label was mapped.
+    fn panels(&self) -> usize {
+        if self.report.labels.iter().any(|l| l.values.is_some()) {
+            METRICS.len()
+        } else {
+            9
+        }
+    }
+}
 
 impl Figure for PurityCurves<'_> {
     fn size(&self) -> (u32, u32) {
-        (1200, 900)
+        (1200, 300 * self.panels().div_ceil(3) as u32)
     }
 
     fn draw<DB: DrawingBackend>(&self, area: &DrawingArea<DB, Shift>) -> Result<(), String> {
@@ -258,7 +390,9 @@ impl Figure for PurityCurves<'_> {
             *layers.first().unwrap_or(&0) as f64,
             (*layers.last().unwrap_or(&0) as f64).max(*layers.first().unwrap_or(&0) as f64 + 1.0),
         );
-        for (cell, (title, get)) in body.split_evenly((3, 3)).iter().zip(METRICS.iter()) {
+        let rows = self.panels().div_ceil(3);
+        let cells = body.split_evenly((rows, 3));
+        for (cell, (title, get)) in cells.iter().zip(METRICS.iter().take(self.panels())) {
             let vals: Vec<f64> = self.report.records.iter().filter_map(get).collect();
             let lo = vals.iter().cloned().fold(0.0, f64::min);
             let hi = vals.iter().cloned().fold(1.0, f64::max);

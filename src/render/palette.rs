@@ -64,9 +64,35 @@ pub fn ramp(t: f64) -> Rgb {
     oklch_to_rgb(l, c, h)
 }
 
+/// Sequential ramp for values on a white background, `t` in [0, 1]: light olive through teal
+/// to deep violet, monotone in lightness and never paler than 0.84, so low values stay visible.
+pub fn value_ramp(t: f64) -> Rgb {
+    let t = if t.is_finite() {
+        t.clamp(0.0, 1.0)
+    } else {
+        0.0
+    };
+    let l = 0.84 - 0.48 * t;
+    let c = 0.11 + 0.05 * (std::f64::consts::PI * t).sin();
+    let h = 105.0 + 195.0 * t;
+    oklch_to_rgb(l, c, h)
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn value_ramp_gets_darker_and_stays_visible() {
+        let lum = |c: Rgb| 0.2126 * c.0 as f64 + 0.7152 * c.1 as f64 + 0.0722 * c.2 as f64;
+        let mut prev = f64::INFINITY;
+        for i in 0..=10 {
+            let v = lum(value_ramp(i as f64 / 10.0));
+            assert!(v < prev, "step {i}");
+            assert!(v < 225.0, "step {i} too pale: {v}");
+            prev = v;
+        }
+    }
 
     #[test]
     fn oklab_white_and_black_round_trip() {

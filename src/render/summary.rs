@@ -177,6 +177,20 @@ pub fn human_bytes(b: u64) -> String {
     }
 }
 
+/// A value with four significant digits, for ranges of any scale.
+fn sig(v: f64) -> String {
+    if !v.is_finite() {
+        return "-".into();
+    }
+    let mag = if v == 0.0 {
+        0
+    } else {
+        v.abs().log10().floor() as i32
+    };
+    let decimals = (3 - mag).clamp(0, 6) as usize;
+    format!("{v:.decimals$}")
+}
+
 /// The summary as text for a terminal.
 pub fn inspect(s: &InspectSummary) -> String {
     use std::fmt::Write;
@@ -235,6 +249,21 @@ pub fn inspect(s: &InspectSummary) -> String {
             show(&t.smallest),
             show(&t.largest)
         );
+    }
+    if !s.continuous.is_empty() {
+        let _ = writeln!(o, "\ncontinuous label columns ({})", s.continuous.len());
+        for c in &s.continuous {
+            let _ = writeln!(
+                o,
+                "  {:<10} {:>8} labelled  {:>7} missing   range {} to {}   mean {}",
+                c.column,
+                c.labelled_frames,
+                c.missing_frames,
+                sig(c.min),
+                sig(c.max),
+                sig(c.mean)
+            );
+        }
     }
     if s.warnings.is_empty() {
         let _ = writeln!(

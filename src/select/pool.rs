@@ -318,6 +318,7 @@ mod tests {
                 classes: vec!["a".into(), "b".into(), "c".into()],
                 codes,
             }],
+            continuous: vec![],
         }
     }
 

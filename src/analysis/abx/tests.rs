@@ -38,6 +38,7 @@ fn table(utts: &[(&str, &str)]) -> FrameTable {
     FrameTable {
         utterances,
         utt_speaker,
+        continuous: vec![],
         tasks: vec![
             LabelTask {
                 name: "phone".into(),

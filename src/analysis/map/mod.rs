@@ -131,7 +131,8 @@ impl Default for MapOptions {
 }
 
 fn check_color_by(cap: &Capture, opts: &MapOptions) -> Result<Vec<String>, MapError> {
-    let names = cap.frames.task_names();
+    let mut names = cap.frames.task_names();
+    names.extend(cap.frames.continuous.iter().map(|t| t.name.clone()));
     // The default tasks, speaker first (the maps' first question is who is speaking).
     let mut out: Vec<String> = cap.frames.default_tasks();
     out.sort_by_key(|n| n != "speaker");
@@ -162,12 +163,16 @@ pub fn run(
     let mut notes = Vec::new();
     let sample = draw_sample(cap, opts, common.seed, &mut notes)?;
     let n = sample.frames.len();
-    let labels = sample_labels(cap, &sample.frames);
+    let mut labels = sample_labels(cap, &sample.frames);
+    let n_categorical = labels.len();
+    labels.extend(sample_values(cap, &sample.frames, &colourings));
+    let (class_labels, value_labels) = labels.split_at(n_categorical);
     // Both k shrink on tiny samples (k-NN needs k < n; k-means at most a tenth of the
     // sample); the values used are written to the options as knn_k_used and kmeans_k_used.
     let metrics = LayerMetrics {
-        labels: &labels,
-        task_codes: labels.iter().map(|l| l.codes.as_slice()).collect(),
+        labels: class_labels,
+        values: value_labels,
+        task_codes: class_labels.iter().map(|l| l.codes.as_slice()).collect(),
         knn_k: opts.knn_k.min(n - 1),
         kmeans_k: opts.kmeans_k.min((n / 10).max(2)),
         kmeans_iterations: opts.kmeans_iterations,
@@ -180,7 +185,7 @@ pub fn run(
     let step = progress.step("map", layer_idx.len() as u64 * (total_iters + 1));
     let mut layers: Vec<LayerMap> = Vec::new();
     let mut records = Vec::new();
-    let mut singleton_noted = vec![false; labels.len()];
+    let mut singleton_noted = vec![false; n_categorical];
     for &li in &layer_idx {
         let layer_id = cap.layers[li].id;
         step.message(&format!("layer {layer_id}"));
@@ -274,6 +279,22 @@ fn sample_labels(cap: &Capture, frames: &[usize]) -> Vec<SampleLabels> {
             name: t.name.clone(),
             classes: t.classes.clone(),
             codes: frames.iter().map(|&f| t.codes[f]).collect(),
+            values: None,
+        })
+        .collect()
+}
+
+/// The values of the continuous columns among `colourings` on the sampled frames.
+fn sample_values(cap: &Capture, frames: &[usize], colourings: &[String]) -> Vec<SampleLabels> {
+    cap.frames
+        .continuous
+        .iter()
+        .filter(|t| colourings.contains(&t.name))
+        .map(|t| SampleLabels {
+            name: t.name.clone(),
+            classes: vec![],
+            codes: vec![UNLABELLED; frames.len()],
+            values: Some(frames.iter().map(|&f| t.values[f]).collect()),
         })
         .collect()
 }
@@ -367,7 +388,10 @@ fn tsne_map(
 
 /// What every layer's purity metrics share: the sampled labels and the k values used.
 struct LayerMetrics<'a> {
+    /// Categorical labels (purity, silhouette, clusters).
     labels: &'a [SampleLabels],
+    /// Continuous labels (k-NN R²).
+    values: &'a [SampleLabels],
     task_codes: Vec<&'a [u32]>,
     knn_k: usize,
     kmeans_k: usize,
@@ -436,6 +460,20 @@ impl LayerMetrics<'_> {
                 within_phone_share: phone.filter(|p| p.name != lab.name).and_then(|p| {
                     crate::analysis::variance::within_phone_share(x.view(), &p.codes, &lab.codes)
                 }),
+                ..Default::default()
+            });
+        }
+        for lab in self.values {
+            let v = lab.values.as_deref().unwrap_or(&[]);
+            records.push(PurityRecord {
+                layer: map.layer,
+                label: lab.name.clone(),
+                n_frames: v.iter().filter(|x| x.is_finite()).count(),
+                knn_r2: purity::knn_r2(&full, v, k),
+                knn_r2_2d: purity::knn_r2(&map_pts, v, k),
+                kl_divergence: map.kl_divergence,
+                explained_variance: explained,
+                ..Default::default()
             });
         }
         records

@@ -13,6 +13,7 @@ pub mod fit;
 pub mod lbfgs;
 pub mod metrics;
 mod plan;
+pub mod ridge;
 pub mod softmax;
 
 use ndarray::{Array2, ArrayView2};

@@ -447,6 +447,7 @@ mod page_tests {
             speakers: 2,
             layers: vec![],
             tasks: vec![],
+            continuous: vec![],
             bytes_on_disk: 0,
             probe_memory_estimate: 0,
             notes: serde_json::json!({ "model": "<img src=x onerror=alert(1)>" }),
