@@ -291,6 +291,9 @@ impl Capture {
             _ => per_file_layers_of(arrays.into_iter().enumerate().collect())?,
         };
         check_layers_match(&layers, frames.n_frames(), "labels")?;
+        let mut frames = frames;
+        // Column kinds by the same rule as a folder's (no capture.toml to declare them).
+        let label_notes = kinds::classify(&mut frames, &BTreeMap::new(), &dir, Some(1))?;
         let mut cap = Capture {
             dir,
             name: name.to_string(),
@@ -299,6 +302,7 @@ impl Capture {
             frames,
             nonfinite_frames: vec![],
             label_source: "in memory".to_string(),
+            label_notes,
         };
         if allow_nonfinite {
             cap.mask_nonfinite_frames();
