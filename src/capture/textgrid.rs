@@ -263,14 +263,20 @@ pub fn read_textgrid(path: &Path) -> Result<TextGrid, CaptureError> {
 pub fn parse_textgrid(path: &Path, bytes: &[u8]) -> Result<TextGrid, CaptureError> {
     let text = decode(path, bytes)?;
     let mut toks = tokenize(path, &text)?;
-    let head_ok = matches!(toks.first(), Some((Tok::Str(s), _)) if s.starts_with("ooTextFile"))
-        && matches!(toks.get(1), Some((Tok::Str(s), _)) if s == "TextGrid");
+    // The header: words (`File type =`, long and short format alike) and two texts.
+    let strs: Vec<usize> = (0..toks.len())
+        .filter(|&i| !matches!(toks[i].0, Tok::Word(_)))
+        .take(2)
+        .collect();
+    let head_ok = matches!(strs.as_slice(), [a, b]
+        if matches!(&toks[*a].0, Tok::Str(s) if s.starts_with("ooTextFile"))
+            && matches!(&toks[*b].0, Tok::Str(s) if s == "TextGrid"));
     if !head_ok {
-        let found = toks
-            .first()
+        let first = strs.first().and_then(|&i| toks.get(i)).or(toks.first());
+        let found = first
             .map(|t| describe(&t.0))
             .unwrap_or("an empty file".into());
-        let l = toks.first().map(|t| t.1).unwrap_or(1);
+        let l = first.map(|t| t.1).unwrap_or(1);
         return Err(err(
             path,
             l,
@@ -278,12 +284,14 @@ pub fn parse_textgrid(path: &Path, bytes: &[u8]) -> Result<TextGrid, CaptureErro
             found,
         ));
     }
+    let body = strs[1] + 1;
     // Labels (long format) are words; the short format has none after the header.
-    let long = matches!(toks.get(2), Some((Tok::Word(_), _)));
+    let long = matches!(toks.get(body), Some((Tok::Word(_), _)));
+    let mut toks = toks.split_off(body);
     if long {
         toks.retain(|t| !matches!(t.0, Tok::Word(_)));
     }
-    let mut v = Values { path, toks, pos: 2 };
+    let mut v = Values { path, toks, pos: 0 };
     let (xmin, _) = v.num("the start time of the grid (xmin)")?;
     let (xmax, _) = v.num("the end time of the grid (xmax)")?;
     let n_tiers = match v.toks.get(v.pos) {
