@@ -620,7 +620,8 @@ impl NpyFile {
     }
 
     /// Decode all frames of layer `layer` into `out` (frames * dim values, row-major) on the
-    /// calling thread, then drop the pages read: for files of one utterance, read many at once.
+    /// calling thread: for files of one utterance, read many at once and unmapped (dropped)
+    /// right after, which also drops the pages read.
     pub fn decode_layer_into(&self, layer: usize, out: &mut [f32]) {
         let (l, f, d) = self.layer_shape();
         let data = self.data();
@@ -634,11 +635,10 @@ impl NpyFile {
                 }
             }
         }
-        self.release();
     }
 
     /// Decode rows `rows` of layer `layer` into `out` (rows.len() * dim values, row-major) on
-    /// the calling thread, then drop the pages read.
+    /// the calling thread (as [`NpyFile::decode_layer_into`], for files unmapped right after).
     pub fn decode_rows_into(&self, layer: usize, rows: &[usize], out: &mut [f32]) {
         let (_, _, d) = self.layer_shape();
         let data = self.data();
@@ -652,7 +652,6 @@ impl NpyFile {
                 self.decode_run(data, self.index(layer, r, 0), slice);
             }
         }
-        self.release();
     }
 
     /// Drop the pages holding data elements `lo..hi` (storage order) from the resident set.
