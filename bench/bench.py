@@ -192,6 +192,38 @@ def rows_read(quick):
     return out, blas
 
 
+def row_utts(quick):
+    """Reading one layer from 10 000 per-utterance files against the same rows in one file,
+    both by `bench_read` in the same run (best of 3 from the page cache)."""
+    d = gen_data.ensure("utts", quick)
+    n_utt = gen_data.SIZES["utts"][1 if quick else 0]["utterances"]
+    secs = {}
+    for layout in ("one", "folders", "stacks"):
+        cap = os.path.join(d, layout)
+        for root, _, files in os.walk(cap):
+            warm_cache(*(os.path.join(root, f) for f in files if f.endswith(".npy")))
+        run = timed([example("bench_read"), cap, fresh(os.path.join(OUT, "utts", layout)), 3, 997])
+        run.check(f"bench_read {layout}")
+        secs[layout] = [json.loads(l)["seconds"] for l in run.out.splitlines() if l.startswith("{")]
+    out = []
+    for layout, what in (("folders", "layer_XX/<utt>.npy"), ("stacks", "acts/<utt>.npy, 2 layers each")):
+        for layer, (ref_s, ours_s) in enumerate(zip(secs["one"], secs[layout])):
+            r = ours_s / ref_s
+            out.append(
+                row(
+                    f"read one layer from {n_utt} per-utterance files ({what}), layer {layer}",
+                    reference="voxstrata, the same rows in one file",
+                    ref_s=ref_s,
+                    ours_s=ours_s,
+                    target="<= 2x one file's time",
+                    met=yes(r <= 2.0, f"{r:.2f}x"),
+                    notes="Capture::read_layer (decode + finiteness check), best of 3 from the page "
+                    "cache; the reference column is our own one-file read, measured in the same run",
+                )
+            )
+    return out
+
+
 def row_inspect(quick):
     d = gen_data.ensure("big", quick)
     size = sum(os.path.getsize(os.path.join(d, f)) for f in os.listdir(d) if f.endswith(".npy"))
@@ -584,7 +616,7 @@ def render(rows, info, quick, load_before, load_after, blas, elapsed, versions):
 def main():
     ap = argparse.ArgumentParser()
     ap.add_argument("--quick", action="store_true")
-    ap.add_argument("--only", nargs="*", help="row numbers to run (1..8)")
+    ap.add_argument("--only", nargs="*", help="row numbers to run (1..9)")
     a = ap.parse_args()
     only = set(a.only or [])
     want = lambda n: not only or str(n) in only  # noqa: E731
@@ -666,6 +698,8 @@ def main():
                        notes="not measured: the Python package is not installed in bench/.venv"))
         else:
             add(8, attempt(8, row_python_probe, a.quick))
+    if want(9):
+        add(9, attempt(9, row_utts, a.quick))
     rows.sort(key=lambda r: r["id"])
     load_after = uptime()
     elapsed = time.perf_counter() - t0

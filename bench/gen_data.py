@@ -37,6 +37,9 @@ SIZES = {
     ),
     # CKA: a capture of 13 layers x 20 000 frames x 768 dims made by a random deep network.
     "cka": ({"frames": 20_000, "dim": 768, "layers": 13}, {"frames": 5_000, "dim": 768, "layers": 5}),
+    # per-utterance read: 10 000 utterances of 20..80 frames (seeded), 128 dims f32, written
+    # three ways: one file per layer, per-layer folders, per-utterance stacks of 2 layers.
+    "utts": ({"utterances": 10_000, "dim": 128}, {"utterances": 2_000, "dim": 128}),
 }
 
 
@@ -204,7 +207,43 @@ def make_cka(quick):
     return d
 
 
-MAKERS = {"read": make_read, "big": make_big, "probe": make_probe, "tsne": make_tsne, "cka": make_cka}
+def make_utts(quick):
+    """The same two layers as one file each (one/), as layer_XX/<utt>.npy (folders/) and as
+    acts/<utt>.npy stacks (stacks/), all listed by utterances.tsv in one order."""
+    d, p, ok = _fresh("utts", quick)
+    if ok:
+        return d
+    rng = np.random.default_rng(SEED)
+    n_utt, dim = p["utterances"], p["dim"]
+    lens = rng.integers(20, 81, n_utt)
+    names = [f"u{u:05d}" for u in range(n_utt)]
+    layers = [rng.standard_normal((int(lens.sum()), dim), dtype=np.float32) for _ in range(2)]
+    one, folders, stacks = (os.path.join(d, x) for x in ("one", "folders", "stacks"))
+    for x in (one, folders, stacks):
+        os.makedirs(x)
+    with open(os.path.join(one, "frames.tsv"), "w") as f:
+        f.write("utterance\tspeaker\n")
+        for name, n in zip(names, lens):
+            f.writelines([f"{name}\ts{int(name[1:]) % 8}\n"] * int(n))
+    for x in (folders, stacks):
+        with open(os.path.join(x, "utterances.tsv"), "w") as f:
+            f.write("utterance\tspeaker\n")
+            f.writelines(f"{name}\ts{int(name[1:]) % 8}\n" for name in names)
+    os.makedirs(os.path.join(stacks, "acts"))
+    for layer, a in enumerate(layers):
+        np.save(os.path.join(one, f"layer_{layer:02d}.npy"), a)
+        os.makedirs(os.path.join(folders, f"layer_{layer:02d}"))
+    starts = np.concatenate([[0], np.cumsum(lens)])
+    for u, name in enumerate(names):
+        lo, hi = starts[u], starts[u + 1]
+        for layer, a in enumerate(layers):
+            np.save(os.path.join(folders, f"layer_{layer:02d}", f"{name}.npy"), a[lo:hi])
+        np.save(os.path.join(stacks, "acts", f"{name}.npy"), np.stack([a[lo:hi] for a in layers]))
+    _done(d, p)
+    return d
+
+
+MAKERS = {"read": make_read, "big": make_big, "probe": make_probe, "tsne": make_tsne, "cka": make_cka, "utts": make_utts}
 
 
 def ensure(name, quick):

@@ -7,6 +7,7 @@ use std::path::Path;
 
 use voxstrata::capture::labels::{self, Columns, LabelOptions, Timing};
 use voxstrata::capture::npy::{parse_header, NpyFile};
+use voxstrata::capture::{ctm, textgrid, utterances};
 
 /// Frames a segment table may expand to in the harness (the CLI bounds it by the layer files).
 pub const SEGMENT_FRAME_LIMIT: usize = 1 << 20;
@@ -149,5 +150,98 @@ pub fn segments(dir: &Path, data: &[u8]) {
                 check_table(&t);
             }
         }
+    }
+}
+
+/// An utterance list of two utterances of 60 frames each, written once into `dir`.
+fn two_utterances(dir: &Path) -> Option<voxstrata::capture::utterances::UttList> {
+    let p = dir.join("utterances.tsv");
+    std::fs::write(&p, "utterance\tspeaker\tframes\nu1\ts1\t60\nu2\ts2\t60\n").ok()?;
+    let cols = Columns {
+        utterance: "utterance",
+        speaker: "speaker",
+    };
+    voxstrata::capture::utterances::read_utterances(&p, &cols).ok()
+}
+
+/// Turn tiers into a frame table for the two utterances and check it.
+fn check_tiers(ul: &voxstrata::capture::utterances::UttList, tiers: Vec<utterances::Tier>) {
+    let counts = [60u32, 60];
+    for opts in [LabelOptions::default(), label_options()] {
+        let timing = Timing {
+            hop_s: 0.01,
+            win_s: 0.025,
+        };
+        if let Ok(t) = utterances::build_table(
+            ul,
+            &counts,
+            tiers.clone(),
+            utterances::Place::Text,
+            timing,
+            &opts,
+        ) {
+            assert_eq!(t.n_frames(), 120);
+            check_table(&t);
+        }
+    }
+}
+
+/// TextGrid parser on the bytes (both as they are and behind a UTF-16 byte-order mark); every
+/// interval tier read is then turned into frame labels.
+pub fn textgrid(dir: &Path, data: &[u8]) {
+    let path = dir.join("u1.TextGrid");
+    let mut utf16 = vec![0xFF, 0xFE];
+    utf16.extend(
+        String::from_utf8_lossy(data)
+            .encode_utf16()
+            .flat_map(|u| u.to_le_bytes()),
+    );
+    let Some(ul) = two_utterances(dir) else {
+        return;
+    };
+    for bytes in [data, &utf16[..]] {
+        let Ok(g) = textgrid::parse_textgrid(&path, bytes) else {
+            continue;
+        };
+        let mut tiers = Vec::new();
+        for t in g.tiers {
+            for w in t.intervals.windows(2) {
+                assert!(w[1].start >= w[0].end - 1e-9, "overlap passed the parser");
+            }
+            assert!(t.intervals.iter().all(|i| i.end > i.start));
+            let ui = utterances::UttIntervals {
+                file: path.clone(),
+                intervals: t.intervals,
+            };
+            tiers.push(utterances::Tier {
+                name: format!("tier{}", tiers.len()),
+                per_utt: vec![Some(ui), None],
+            });
+        }
+        check_tiers(&ul, tiers);
+    }
+}
+
+/// CTM reader on the bytes, then conversion of its lines into frame labels.
+pub fn ctm(dir: &Path, data: &[u8]) {
+    let path = dir.join("alignments.ctm");
+    let Some(ul) = two_utterances(dir) else {
+        return;
+    };
+    if let Ok((per_utt, _)) = ctm::parse_ctm(&path, data, &ul) {
+        assert_eq!(per_utt.len(), 2);
+        let tier = utterances::Tier {
+            name: "phone".into(),
+            per_utt: per_utt
+                .into_iter()
+                .map(|intervals| {
+                    Some(utterances::UttIntervals {
+                        file: path.clone(),
+                        intervals,
+                    })
+                })
+                .collect(),
+        };
+        check_tiers(&ul, vec![tier]);
     }
 }

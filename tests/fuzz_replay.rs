@@ -52,3 +52,13 @@ fn frame_table_reader_survives_every_committed_input() {
 fn segment_conversion_survives_every_committed_input() {
     replay("segments", harness::segments);
 }
+
+#[test]
+fn textgrid_reader_survives_every_committed_input() {
+    replay("textgrid", harness::textgrid);
+}
+
+#[test]
+fn ctm_reader_survives_every_committed_input() {
+    replay("ctm", harness::ctm);
+}

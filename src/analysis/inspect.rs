@@ -12,7 +12,7 @@ pub const MIN_CLASS_FRAMES: usize = 5;
 
 /// Summarise a capture (reads a sample of every layer, one layer at a time).
 pub fn summarise(cap: &Capture) -> Summary {
-    let mut warnings = Vec::new();
+    let mut warnings = cap.notes.clone();
     let layers = (0..cap.layers.len())
         .map(|i| layer_info(cap, i, &mut warnings))
         .collect();
@@ -40,7 +40,6 @@ pub fn summarise(cap: &Capture) -> Summary {
             }
         })
         .collect();
-    warnings.extend(cap.label_notes.iter().cloned());
     if cap.frames.speakers.len() < 2 {
         warnings.push(
             "only one speaker: speaker-disjoint probes are impossible (use --split utterance)"
@@ -60,6 +59,9 @@ pub fn summarise(cap: &Capture) -> Summary {
         name: cap.name.clone(),
         path: cap.dir.display().to_string(),
         label_source: cap.label_source.clone(),
+        label_files: cap.label_files,
+        layout: cap.layout.clone(),
+        layer_files: cap.layer_files(),
         hop_s: cap.config.hop_s,
         frames: cap.n_frames(),
         utterances: cap.frames.utterances.len(),
@@ -79,7 +81,13 @@ pub fn summarise(cap: &Capture) -> Summary {
 /// its rows (each finding also a warning).
 fn layer_info(cap: &Capture, i: usize, warnings: &mut Vec<String>) -> LayerInfo {
     let l = &cap.layers[i];
-    let (rows, m) = cap.sample_layer_raw(i, SCAN_ROWS);
+    let (rows, m) = match cap.sample_layer_raw(i, SCAN_ROWS) {
+        Ok(x) => x,
+        Err(e) => {
+            warnings.push(format!("layer {}: not scanned: {e}", l.id));
+            (vec![], ndarray::Array2::zeros((0, l.dim())))
+        }
+    };
     let mut nonfinite = 0usize;
     let mut first_bad: Option<(usize, usize)> = None;
     for (r, row) in m.outer_iter().enumerate() {

@@ -7,6 +7,9 @@
 use std::collections::HashMap;
 use std::path::Path;
 
+use super::utterances::{
+    build_table, listed_frames, read_utterances, Interval, Place, Tier, UttIntervals, UttList,
+};
 use super::CaptureError;
 
 /// Code of a frame that has no label for a task.
@@ -225,21 +228,21 @@ pub fn read_tsv(path: &Path) -> Result<Table, CaptureError> {
 }
 
 /// Interns the values of one task column as codes.
-struct TaskBuilder {
+pub(crate) struct TaskBuilder {
     index: HashMap<String, u32>,
     classes: Vec<String>,
     codes: Vec<u32>,
 }
 
 impl TaskBuilder {
-    fn new() -> Self {
+    pub(crate) fn new() -> Self {
         TaskBuilder {
             index: HashMap::new(),
             classes: Vec::new(),
             codes: Vec::new(),
         }
     }
-    fn push(&mut self, v: Option<&str>) {
+    pub(crate) fn push(&mut self, v: Option<&str>) {
         let code = match v {
             None => UNLABELLED,
             Some(s) => match self.index.get(s) {
@@ -254,7 +257,7 @@ impl TaskBuilder {
         };
         self.codes.push(code);
     }
-    fn finish(self, name: &str) -> LabelTask {
+    pub(crate) fn finish(self, name: &str) -> LabelTask {
         LabelTask {
             name: name.to_string(),
             classes: self.classes,
@@ -276,7 +279,7 @@ fn column(path: &Path, header: &[String], name: &str) -> Result<usize, CaptureEr
         })
 }
 
-struct Builder {
+pub(crate) struct Builder {
     utterances: Vec<String>,
     utt_index: HashMap<String, u32>,
     utt_speaker: Vec<u32>,
@@ -286,7 +289,7 @@ struct Builder {
 }
 
 impl Builder {
-    fn new() -> Self {
+    pub(crate) fn new() -> Self {
         Builder {
             utterances: vec![],
             utt_index: HashMap::new(),
@@ -296,7 +299,7 @@ impl Builder {
             spk_index: HashMap::new(),
         }
     }
-    fn speaker(&mut self, s: &str) -> u32 {
+    pub(crate) fn speaker(&mut self, s: &str) -> u32 {
         if let Some(&k) = self.spk_index.get(s) {
             return k;
         }
@@ -349,7 +352,7 @@ impl Builder {
     }
 
     /// Add utterance `name` of speaker `s` with `len` frames; returns its index.
-    fn add_utterance(&mut self, name: &str, s: u32, len: u32) -> u32 {
+    pub(crate) fn add_utterance(&mut self, name: &str, s: u32, len: u32) -> u32 {
         self.utterances.push(name.to_string());
         self.utt_speaker.push(s);
         self.utt_len.push(len);
@@ -359,7 +362,7 @@ impl Builder {
     }
 
     /// The finished table.
-    fn into_table(
+    pub(crate) fn into_table(
         self,
         frame_utt: Vec<u32>,
         frame_pos: Vec<u32>,
@@ -377,7 +380,7 @@ impl Builder {
     }
 }
 
-fn clean<'a>(opts: &'a LabelOptions, v: &'a str) -> Option<&'a str> {
+pub(crate) fn clean<'a>(opts: &'a LabelOptions, v: &'a str) -> Option<&'a str> {
     if v.is_empty() {
         return None;
     }
@@ -389,7 +392,7 @@ fn clean<'a>(opts: &'a LabelOptions, v: &'a str) -> Option<&'a str> {
     }
 }
 
-fn speaker_task(b: &Builder, frame_utt: &[u32]) -> LabelTask {
+pub(crate) fn speaker_task(b: &Builder, frame_utt: &[u32]) -> LabelTask {
     LabelTask {
         name: "speaker".into(),
         classes: b.speakers.clone(),
@@ -605,118 +608,67 @@ pub fn read_segments_within(
     opts: &LabelOptions,
     max_frames: usize,
 ) -> Result<FrameTable, CaptureError> {
-    let b = read_utterance_list(utt_path, cols, max_frames)?;
-    let mut per_utt = read_segment_rows(utt_path, seg_path, cols, timing, &b)?;
-    let total: usize = b.utt_len.iter().map(|&n| n as usize).sum();
-    let mut frame_utt = Vec::with_capacity(total);
-    let mut frame_pos = Vec::with_capacity(total);
-    let mut values = TaskBuilder::new();
-    for (u, segs) in per_utt.iter_mut().enumerate() {
-        segs.sort_by(|a, b| a.0.total_cmp(&b.0));
-        check_no_overlap(seg_path, segs)?;
-        let n = b.utt_len[u] as usize;
-        let mut k = 0usize;
-        for i in 0..n {
-            let t = timing.centre(i);
-            while k < segs.len() && segs[k].1 <= t {
-                k += 1;
-            }
-            let label = if k < segs.len() && segs[k].0 <= t && t < segs[k].1 {
-                clean(opts, &segs[k].2)
-            } else {
-                None
-            };
-            frame_utt.push(u as u32);
-            frame_pos.push(i as u32);
-            values.push(label);
-        }
-    }
-    let mut tasks = vec![values.finish(label_name)];
-    tasks.push(speaker_task(&b, &frame_utt));
-    Ok(b.into_table(frame_utt, frame_pos, tasks))
+    let ul = read_utterances(utt_path, cols)?;
+    let counts = listed_frames(&ul, max_frames)?;
+    segments_table(&ul, &counts, seg_path, label_name, timing, opts)
 }
 
-/// One segment of `segments.tsv`: start and end (s), label, and its line.
-type SegmentRow = (f64, f64, String, usize);
-
-/// Read `utterances.tsv`: each utterance once, with its speaker and a whole number of frames,
-/// at most `max_frames` frames in all.
-fn read_utterance_list(
-    utt_path: &Path,
-    cols: &Columns,
-    max_frames: usize,
-) -> Result<Builder, CaptureError> {
-    let (uh, urows) = read_tsv(utt_path)?;
-    let ucol = column(utt_path, &uh, cols.utterance)?;
-    let scol = column(utt_path, &uh, cols.speaker)?;
-    let fcol = column(utt_path, &uh, "frames")?;
-    if urows.is_empty() {
-        return Err(CaptureError::Table {
-            path: utt_path.to_path_buf(),
-            row: 2,
-            field: "rows".into(),
-            expected: "one row per utterance".into(),
-            found: "a header and no rows".into(),
-        });
-    }
-    let mut b = Builder::new();
-    let mut listed = 0usize;
-    for (line, f) in &urows {
-        let n: u32 = f[fcol].parse().map_err(|_| CaptureError::Table {
-            path: utt_path.to_path_buf(),
-            row: *line,
-            field: "frames".into(),
-            expected: "a whole number of frames".into(),
-            found: format!("'{}'", f[fcol]),
-        })?;
-        if b.utt_index.contains_key(&f[ucol]) {
-            return Err(CaptureError::Table {
-                path: utt_path.to_path_buf(),
-                row: *line,
-                field: cols.utterance.into(),
-                expected: "each utterance once".into(),
-                found: format!("'{}' a second time", f[ucol]),
-            });
-        }
-        if listed.saturating_add(n as usize) > max_frames {
-            return Err(CaptureError::Table {
-                path: utt_path.to_path_buf(),
-                row: *line,
-                field: "frames".into(),
-                expected: format!(
-                    "at most {max_frames} frames in all (the frames of the layer files)"
-                ),
-                found: format!("{} frames up to this row", listed as u64 + n as u64),
-            });
-        }
-        listed += n as usize;
-        let s = b.speaker(&f[scol]);
-        b.add_utterance(&f[ucol], s, n);
-    }
-    Ok(b)
+/// The frame table of the utterances of `ul` (with `counts` frames each) labelled from
+/// `segments.tsv`.
+pub fn segments_table(
+    ul: &UttList,
+    counts: &[u32],
+    seg_path: &Path,
+    label_name: &str,
+    timing: Timing,
+    opts: &LabelOptions,
+) -> Result<FrameTable, CaptureError> {
+    let cols = Columns {
+        utterance: "utterance",
+        speaker: "speaker",
+    };
+    let per_utt = read_segment_rows(ul, seg_path, &cols)?;
+    let tier = Tier {
+        name: label_name.to_string(),
+        per_utt: per_utt
+            .into_iter()
+            .map(|intervals| {
+                Some(UttIntervals {
+                    file: seg_path.to_path_buf(),
+                    intervals,
+                })
+            })
+            .collect(),
+    };
+    build_table(
+        ul,
+        counts,
+        vec![tier],
+        Place::Table("start_s", "end_s"),
+        timing,
+        opts,
+    )
 }
 
-/// Read `segments.tsv`, grouped per utterance of `b`: every row names a listed utterance and
-/// has times in seconds, an end after its start and within the utterance.
+/// Read `segments.tsv`, grouped per utterance of `ul`: every row names a listed utterance and
+/// has times in seconds and an end after its start.
 fn read_segment_rows(
-    utt_path: &Path,
+    ul: &UttList,
     seg_path: &Path,
     cols: &Columns,
-    timing: Timing,
-    b: &Builder,
-) -> Result<Vec<Vec<SegmentRow>>, CaptureError> {
+) -> Result<Vec<Vec<Interval>>, CaptureError> {
     let (sh, srows) = read_tsv(seg_path)?;
     let su = column(seg_path, &sh, cols.utterance)?;
     let ss = column(seg_path, &sh, "start_s")?;
     let se = column(seg_path, &sh, "end_s")?;
     let sl = column(seg_path, &sh, "label")?;
-    let mut per_utt: Vec<Vec<SegmentRow>> = vec![Vec::new(); b.utterances.len()];
+    let mut per_utt: Vec<Vec<Interval>> = vec![Vec::new(); ul.names.len()];
     for (line, f) in &srows {
-        let u = *b.utt_index.get(&f[su]).ok_or_else(|| CaptureError::Table {
+        let u = ul.find(&f[su]).ok_or_else(|| CaptureError::Table {
             path: seg_path.to_path_buf(),
             row: *line,
             field: cols.utterance.into(),
-            expected: format!("an utterance listed in {}", utt_path.display()),
+            expected: format!("an utterance listed in {}", ul.path.display()),
             found: format!("'{}'", f[su]),
         })?;
         let num = |c: usize, name: &str| seconds(seg_path, *line, name, &f[c]);
@@ -730,24 +682,12 @@ fn read_segment_rows(
                 found: format!("{e}"),
             });
         }
-        let n = b.utt_len[u as usize] as f64;
-        let limit = (n + SEGMENT_END_SLACK_FRAMES) * timing.hop_s + timing.win_s - timing.hop_s;
-        if e > limit + 1e-9 {
-            return Err(CaptureError::Table {
-                path: seg_path.to_path_buf(),
-                row: *line,
-                field: "end_s".into(),
-                expected: format!(
-                    "an end within utterance '{}' ({} frames, {:.3} s at hop {} s)",
-                    f[su],
-                    n,
-                    n * timing.hop_s,
-                    timing.hop_s
-                ),
-                found: format!("{e}"),
-            });
-        }
-        per_utt[u as usize].push((s, e, f[sl].clone(), *line));
+        per_utt[u].push(Interval {
+            start: s,
+            end: e,
+            label: f[sl].clone(),
+            line: *line,
+        });
     }
     Ok(per_utt)
 }
@@ -771,25 +711,6 @@ fn seconds(path: &Path, line: usize, name: &str, v: &str) -> Result<f64, Capture
         });
     }
     Ok(t)
-}
-
-/// One utterance's segments, sorted by start, must not overlap.
-fn check_no_overlap(seg_path: &Path, segs: &[SegmentRow]) -> Result<(), CaptureError> {
-    for w in segs.windows(2) {
-        if w[1].0 < w[0].1 - 1e-9 {
-            return Err(CaptureError::Table {
-                path: seg_path.to_path_buf(),
-                row: w[1].3,
-                field: "start_s".into(),
-                expected: format!(
-                    "a start at or after the end {} of the segment on row {} (segments must not overlap)",
-                    w[0].1, w[0].3
-                ),
-                found: format!("{}", w[1].0),
-            });
-        }
-    }
-    Ok(())
 }
 
 /// Read a two-column label merge map (`from<TAB>to`, optional header `from<TAB>to`).

@@ -4,9 +4,15 @@
 //! Opening a capture reads headers and label tables only; layer data stays memory-mapped and
 //! is converted to `f32` one layer at a time when an analysis asks for it.
 
+pub mod ctm;
 pub mod kinds;
 pub mod labels;
+mod layout;
 pub mod npy;
+pub mod source;
+mod sources;
+pub mod textgrid;
+pub mod utterances;
 
 use std::collections::BTreeMap;
 use std::path::{Path, PathBuf};
@@ -17,6 +23,7 @@ use serde::{Deserialize, Serialize};
 pub use kinds::{ColumnKind, NumericTask};
 pub use labels::{FrameTable, LabelOptions, LabelTask, Timing, UNLABELLED};
 pub use npy::{Dtype, NpyFile};
+pub use source::LayerSource;
 
 /// Errors while opening or reading a capture. Every variant is bad input (exit code 2)
 /// except [`CaptureError::Io`] on a file that exists but cannot be read, which is still
@@ -52,6 +59,18 @@ pub enum CaptureError {
         row: usize,
         /// Column or part of the row.
         field: String,
+        /// What was expected.
+        expected: String,
+        /// What was found.
+        found: String,
+    },
+    /// A text file (TextGrid, CTM) is malformed.
+    #[error("{path}: line {line}: expected {expected}, found {found}")]
+    Text {
+        /// The file.
+        path: PathBuf,
+        /// 1-based line number.
+        line: usize,
         /// What was expected.
         expected: String,
         /// What was found.
@@ -114,8 +133,12 @@ pub struct CaptureConfig {
     pub utterance_column: String,
     /// Name of the speaker column.
     pub speaker_column: String,
-    /// Task name given to the `label` column of `segments.tsv`.
+    /// Task name given to the `label` column of `segments.tsv`, the phone tier of TextGrid
+    /// files and the labels of `alignments.ctm`.
     pub segment_label: String,
+    /// Name of the TextGrid tier that gives the phone column (default: a tier named
+    /// `phones` or `phone`, in any case).
+    pub phone_tier: Option<String>,
     /// Free-form notes (model, data, accuracy); shown by `inspect` and in reports.
     pub notes: BTreeMap<String, toml::Value>,
     /// Declared kinds of label columns (`continuous`, `categorical` or `ignore`); columns
@@ -135,6 +158,7 @@ impl Default for CaptureConfig {
             utterance_column: "utterance".into(),
             speaker_column: "speaker".into(),
             segment_label: "phone".into(),
+            phone_tier: None,
             notes: BTreeMap::new(),
             columns: BTreeMap::new(),
         }
@@ -148,47 +172,6 @@ pub struct OpenOptions {
     pub labels: LabelOptions,
     /// Drop frames with NaN/Inf in any layer instead of failing (needs a full scan).
     pub allow_nonfinite: bool,
-}
-
-/// Where one layer's data lives.
-#[derive(Debug)]
-pub struct LayerSource {
-    /// The layer number (from the file name, or the index in a stack).
-    pub id: usize,
-    file: std::sync::Arc<NpyFile>,
-    slot: usize,
-}
-
-impl LayerSource {
-    /// The file holding this layer.
-    pub fn path(&self) -> &Path {
-        self.file.path()
-    }
-    /// Feature dimension.
-    pub fn dim(&self) -> usize {
-        self.file.layer_shape().2
-    }
-    /// Frames in this layer.
-    pub fn frames(&self) -> usize {
-        self.file.layer_shape().1
-    }
-    /// Stored element type.
-    pub fn dtype(&self) -> Dtype {
-        self.file.header().dtype
-    }
-    /// Byte order and memory order as text (`little-endian, C order`).
-    pub fn layout(&self) -> String {
-        let h = self.file.header();
-        format!(
-            "{}-endian, {} order",
-            if h.big_endian { "big" } else { "little" },
-            if h.fortran_order { "Fortran" } else { "C" }
-        )
-    }
-    /// Bytes this layer takes on disk.
-    pub fn bytes(&self) -> u64 {
-        (self.frames() as u64) * (self.dim() as u64) * (self.dtype().size() as u64)
-    }
 }
 
 /// An opened capture.
@@ -206,10 +189,15 @@ pub struct Capture {
     pub frames: FrameTable,
     /// Frames dropped for NaN/Inf (only with `allow_nonfinite`).
     pub nonfinite_frames: Vec<usize>,
-    /// Label source: `frames.tsv` or `segments.tsv`.
+    /// Label source: `frames.tsv`, `utterances.tsv + segments.tsv`, ...
     pub label_source: String,
-    /// Notes from reading the labels (non-finite values in continuous columns, overrides).
-    pub label_notes: Vec<String>,
+    /// Label files read (a TextGrid per utterance counts each).
+    pub label_files: usize,
+    /// Layout of the layer data in words.
+    pub layout: String,
+    /// Warnings found while opening (files left out, utterances without labels, non-finite
+    /// values in continuous columns, ...).
+    pub notes: Vec<String>,
 }
 
 /// Parse a pattern like `layer_{}.npy` against a file name, returning the layer number.
@@ -240,27 +228,41 @@ impl Capture {
                 .unwrap_or_else(|| dir.display().to_string())
         });
 
-        let layers = find_layers(dir, &config)?;
-        let (mut frames, label_source) = read_labels(dir, &config, opts, &layers)?;
-        check_layers_match(&layers, frames.n_frames(), &label_source)?;
-        let (source, first_row) = if label_source == "frames.tsv" {
+        let found = find_all_layers(dir, &config)?;
+        let mut label_opts = opts.labels.clone();
+        if label_opts.columns.is_empty() {
+            label_opts.columns = config.label_columns.clone();
+        }
+        let max_frames = found.layers.iter().map(|l| l.frames()).max().unwrap_or(0);
+        let listed = found.listed.as_ref().map(|(ul, c)| (ul, c.as_slice()));
+        // The layers hold `max_frames` frames; more in a table is a mismatch that the check
+        // below reports, so the conversion need not go further.
+        let labels = sources::read_labels(dir, &config, &label_opts, max_frames, listed)?;
+        check_layers_match(&found.layers, labels.frames.n_frames(), &labels.source)?;
+        let mut frames = labels.frames;
+        let (source, first_row) = if labels.source == "frames.tsv" {
             (dir.join("frames.tsv"), Some(2))
         } else {
             (dir.join("capture.toml"), None)
         };
-        let label_notes = kinds::classify(&mut frames, &config.columns, &source, first_row)?;
+        let kind_notes = kinds::classify(&mut frames, &config.columns, &source, first_row)?;
+        let mut notes = found.notes;
+        notes.extend(labels.notes);
+        notes.extend(kind_notes);
         let mut cap = Capture {
             dir: dir.to_path_buf(),
             name,
             config,
-            layers,
+            layers: found.layers,
             frames,
             nonfinite_frames: vec![],
-            label_source,
-            label_notes,
+            label_source: labels.source,
+            label_files: labels.files,
+            layout: found.layout,
+            notes,
         };
         if opts.allow_nonfinite {
-            cap.mask_nonfinite_frames();
+            cap.mask_nonfinite_frames()?;
         }
         Ok(cap)
     }
@@ -302,18 +304,20 @@ impl Capture {
             frames,
             nonfinite_frames: vec![],
             label_source: "in memory".to_string(),
-            label_notes,
+            label_files: 0,
+            layout: "arrays in memory".to_string(),
+            notes: label_notes,
         };
         if allow_nonfinite {
-            cap.mask_nonfinite_frames();
+            cap.mask_nonfinite_frames()?;
         }
         Ok(cap)
     }
 
     /// Mark the frames with a non-finite value in any layer unlabelled in every task, and
     /// list them.
-    fn mask_nonfinite_frames(&mut self) {
-        let bad = self.scan_nonfinite_frames();
+    fn mask_nonfinite_frames(&mut self) -> Result<(), CaptureError> {
+        let bad = self.scan_nonfinite_frames()?;
         if bad.iter().any(|&b| b) {
             let mut frames = std::mem::replace(&mut self.frames, empty_table());
             frames.mask_frames(&bad);
@@ -325,6 +329,7 @@ impl Capture {
                 .map(|(i, _)| i)
                 .collect();
         }
+        Ok(())
     }
 
     /// Number of frames.
@@ -341,9 +346,7 @@ impl Capture {
     /// capture was opened with `allow_nonfinite` (then those frames are zeroed; they carry no
     /// labels and are left out of analyses).
     pub fn read_layer(&self, i: usize) -> Result<Array2<f32>, CaptureError> {
-        let l = &self.layers[i];
-        let mut m = l.file.read_layer(l.slot);
-        l.file.release();
+        let mut m = self.layers[i].read_all()?;
         self.check_finite(i, &mut m, None)?;
         Ok(m)
     }
@@ -359,8 +362,7 @@ impl Capture {
                 format!("{r}"),
             ));
         }
-        let mut m = l.file.read_rows(l.slot, rows);
-        l.file.release();
+        let mut m = l.read_rows(rows)?;
         self.check_finite(i, &mut m, Some(rows))?;
         Ok(m)
     }
@@ -391,27 +393,37 @@ impl Capture {
     }
 
     /// Full scan of every layer for NaN/Inf; returns a per-frame flag.
-    pub fn scan_nonfinite_frames(&self) -> Vec<bool> {
+    pub fn scan_nonfinite_frames(&self) -> Result<Vec<bool>, CaptureError> {
         let mut bad = vec![false; self.n_frames()];
         for l in &self.layers {
-            let m = l.file.read_layer(l.slot);
-            l.file.release();
+            let m = l.read_all()?;
             for (r, row) in m.outer_iter().enumerate() {
                 if row.iter().any(|v| !v.is_finite()) {
                     bad[r] = true;
                 }
             }
         }
-        bad
+        Ok(bad)
     }
 
     /// Evenly spaced sample of up to `max_rows` frames of layer `i`, without the finiteness
     /// check (for scans that report problems rather than fail on them).
-    pub fn sample_layer_raw(&self, i: usize, max_rows: usize) -> (Vec<usize>, Array2<f32>) {
-        let l = &self.layers[i];
-        let out = l.file.sample_rows(l.slot, max_rows);
-        l.file.release();
-        out
+    pub fn sample_layer_raw(
+        &self,
+        i: usize,
+        max_rows: usize,
+    ) -> Result<(Vec<usize>, Array2<f32>), CaptureError> {
+        self.layers[i].sample_rows(max_rows)
+    }
+
+    /// Number of distinct array files holding the layers.
+    pub fn layer_files(&self) -> usize {
+        let mut seen = std::collections::BTreeSet::new();
+        self.layers
+            .iter()
+            .flat_map(|l| l.files())
+            .filter(|(p, _)| seen.insert(p.to_path_buf()))
+            .count()
     }
 
     /// Total size of the layer files on disk.
@@ -419,8 +431,9 @@ impl Capture {
         let mut seen = std::collections::BTreeSet::new();
         self.layers
             .iter()
-            .filter(|l| seen.insert(l.path().to_path_buf()))
-            .map(|l| l.file.file_len())
+            .flat_map(|l| l.files())
+            .filter(|(p, _)| seen.insert(p.to_path_buf()))
+            .map(|(_, n)| n)
             .sum()
     }
 
@@ -494,58 +507,6 @@ fn read_config(dir: &Path) -> Result<CaptureConfig, CaptureError> {
     Ok(config)
 }
 
-/// The folder's label table, from `frames.tsv` or else `utterances.tsv` with `segments.tsv`,
-/// and which of them it came from.
-fn read_labels(
-    dir: &Path,
-    config: &CaptureConfig,
-    opts: &OpenOptions,
-    layers: &[LayerSource],
-) -> Result<(FrameTable, String), CaptureError> {
-    let mut label_opts = opts.labels.clone();
-    if label_opts.columns.is_empty() {
-        label_opts.columns = config.label_columns.clone();
-    }
-    let cols = labels::Columns {
-        utterance: &config.utterance_column,
-        speaker: &config.speaker_column,
-    };
-    let frames_tsv = dir.join("frames.tsv");
-    let (utt_tsv, seg_tsv) = (dir.join("utterances.tsv"), dir.join("segments.tsv"));
-    if frames_tsv.exists() {
-        Ok((
-            labels::read_frames_tsv(&frames_tsv, &cols, &label_opts)?,
-            "frames.tsv".to_string(),
-        ))
-    } else if utt_tsv.exists() && seg_tsv.exists() {
-        let timing = Timing {
-            hop_s: config.hop_s,
-            win_s: config.win_s.unwrap_or(config.hop_s),
-        };
-        Ok((
-            labels::read_segments_within(
-                &utt_tsv,
-                &seg_tsv,
-                &cols,
-                &config.segment_label,
-                timing,
-                &label_opts,
-                // The layers hold this many frames; more in the table is a mismatch that
-                // the check below reports, so the conversion need not go further.
-                layers.iter().map(|l| l.frames()).max().unwrap_or(0),
-            )?,
-            "utterances.tsv + segments.tsv".to_string(),
-        ))
-    } else {
-        Err(CaptureError::invalid(
-            dir,
-            "labels",
-            "frames.tsv, or utterances.tsv with segments.tsv",
-            "neither",
-        ))
-    }
-}
-
 /// Agreement between layers and labels: every layer has the label table's `n` frames and
 /// at least one feature.
 fn check_layers_match(
@@ -583,6 +544,72 @@ fn check_layers_match(
         }
     }
     Ok(())
+}
+
+/// The layers of a capture in any layout, with the utterance list and frame counts of a
+/// per-utterance layout.
+struct FoundLayers {
+    layers: Vec<LayerSource>,
+    listed: Option<(utterances::UttList, Vec<u32>)>,
+    layout: String,
+    notes: Vec<String>,
+}
+
+fn find_all_layers(dir: &Path, config: &CaptureConfig) -> Result<FoundLayers, CaptureError> {
+    let Some(folders) = layout::detect(dir, config)? else {
+        let layers = find_layers(dir, config)?;
+        let layout = match layers.first() {
+            Some(l) if l.n_files() == 1 && layers.len() > 1 && l.path() == layers[1].path() => {
+                "one 3-D stack (layers, frames, dim)".to_string()
+            }
+            _ => format!("one file per layer ({} files)", layers.len()),
+        };
+        return Ok(FoundLayers {
+            layers,
+            listed: None,
+            layout,
+            notes: vec![],
+        });
+    };
+    let utt_tsv = dir.join("utterances.tsv");
+    if !utt_tsv.is_file() {
+        return Err(CaptureError::invalid(
+            dir,
+            "utterances.tsv",
+            "utterances.tsv listing the utterances of the per-utterance arrays",
+            "no such file",
+        ));
+    }
+    let cols = labels::Columns {
+        utterance: &config.utterance_column,
+        speaker: &config.speaker_column,
+    };
+    let ul = utterances::read_utterances(&utt_tsv, &cols)?;
+    let pu = if folders.is_empty() {
+        layout::stacks(dir, &ul)?
+    } else {
+        layout::folders(&ul, folders)?
+    };
+    if let Some(listed) = &ul.frames {
+        if let Some(u) = (0..listed.len()).find(|&u| listed[u] != pu.counts[u]) {
+            return Err(CaptureError::Table {
+                path: utt_tsv,
+                row: ul.lines[u],
+                field: "frames".into(),
+                expected: format!(
+                    "{} frames, as the array file of utterance '{}' holds",
+                    pu.counts[u], ul.names[u]
+                ),
+                found: format!("{}", listed[u]),
+            });
+        }
+    }
+    Ok(FoundLayers {
+        layers: pu.layers,
+        listed: Some((ul, pu.counts)),
+        layout: pu.layout,
+        notes: pu.notes,
+    })
 }
 
 fn find_layers(dir: &Path, config: &CaptureConfig) -> Result<Vec<LayerSource>, CaptureError> {
@@ -674,13 +701,7 @@ fn stack_sources(f: std::sync::Arc<NpyFile>) -> Result<Vec<LayerSource>, Capture
             "0 layers",
         ));
     }
-    Ok((0..l)
-        .map(|i| LayerSource {
-            id: i,
-            file: f.clone(),
-            slot: i,
-        })
-        .collect())
+    Ok((0..l).map(|i| LayerSource::file(i, f.clone(), i)).collect())
 }
 
 /// The layers of a capture with one 2-D `.npy` file per layer, ordered by layer number (each
@@ -719,11 +740,7 @@ fn source_2d(id: usize, f: NpyFile) -> Result<LayerSource, CaptureError> {
             format!("{}-D {:?}", f.header().shape.len(), f.header().shape),
         ));
     }
-    Ok(LayerSource {
-        id,
-        file: std::sync::Arc::new(f),
-        slot: 0,
-    })
+    Ok(LayerSource::file(id, std::sync::Arc::new(f), 0))
 }
 
 /// A set of layer numbers parsed from `0,4-8`.

@@ -669,6 +669,41 @@ impl NpyFile {
         }
     }
 
+    /// Decode all frames of layer `layer` into `out` (frames * dim values, row-major) on the
+    /// calling thread: for files of one utterance, read many at once and unmapped (dropped)
+    /// right after, which also drops the pages read.
+    pub fn decode_layer_into(&self, layer: usize, out: &mut [f32]) {
+        let (l, f, d) = self.layer_shape();
+        let data = self.data();
+        if !self.header.fortran_order {
+            let start = layer * f * d;
+            self.decode_run(data, start, &mut out[..f * d]);
+        } else {
+            for c in 0..d {
+                for r in 0..f {
+                    out[r * d + c] = self.get(data, layer + l * (r + f * c));
+                }
+            }
+        }
+    }
+
+    /// Decode rows `rows` of layer `layer` into `out` (rows.len() * dim values, row-major) on
+    /// the calling thread (as [`NpyFile::decode_layer_into`], for files unmapped right after).
+    pub fn decode_rows_into(&self, layer: usize, rows: &[usize], out: &mut [f32]) {
+        let (_, _, d) = self.layer_shape();
+        let data = self.data();
+        for (k, &r) in rows.iter().enumerate() {
+            let slice = &mut out[k * d..(k + 1) * d];
+            if self.header.fortran_order {
+                for (c, o) in slice.iter_mut().enumerate() {
+                    *o = self.get(data, self.index(layer, r, c));
+                }
+            } else {
+                self.decode_run(data, self.index(layer, r, 0), slice);
+            }
+        }
+    }
+
     /// Drop the pages holding data elements `lo..hi` (storage order) from the resident set.
     fn release_elems(&self, lo: usize, hi: usize) {
         if let Some(Storage::Map(m)) = &self.map {

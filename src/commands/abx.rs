@@ -32,6 +32,7 @@ pub fn run(args: &AbxArgs, common: &CommonOptions, progress: &Progress) -> Resul
     args.abx.check()?;
     write::check_out_dir(&args.out, args.force)?;
     let cap = Capture::open(&args.capture, &args.open)?;
+    super::print_notes(&cap.notes);
     let result = analyse(&cap, &args.abx, common, progress)?;
     super::print_notes(&result.notes);
     write::prepare_out_dir(&args.out, args.force)?;

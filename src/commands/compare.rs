@@ -35,6 +35,8 @@ pub fn run(args: &CompareArgs, common: &CommonOptions, progress: &Progress) -> R
     write::check_out_dir(&args.out, args.force)?;
     let a = Capture::open(&args.capture_a, &args.open)?;
     let b = Capture::open(&args.capture_b, &args.open)?;
+    super::print_notes(&a.notes);
+    super::print_notes(&b.notes);
     let report = compare::run(&a, &b, &args.compare, common, progress)?;
     write::prepare_out_dir(&args.out, args.force)?;
     write(&report, &args.out)?;

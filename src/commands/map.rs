@@ -33,6 +33,7 @@ pub fn run(args: &MapArgs, common: &CommonOptions, progress: &Progress) -> Resul
     args.map.check()?;
     write::check_out_dir(&args.out, args.force)?;
     let cap = Capture::open(&args.capture, &args.open)?;
+    super::print_notes(&cap.notes);
     let report = map::run(&cap, &args.map, common, progress)?;
     super::print_notes(&report.notes);
     write::prepare_out_dir(&args.out, args.force)?;

@@ -32,6 +32,7 @@ pub fn run(args: &ProbeArgs, common: &CommonOptions, progress: &Progress) -> Res
     args.probe.check()?;
     write::check_out_dir(&args.out, args.force)?;
     let cap = Capture::open(&args.capture, &args.open)?;
+    super::print_notes(&cap.notes);
     let report = probe::run(&cap, &args.probe, common, progress)?;
     super::print_notes(&report.notes);
     write::prepare_out_dir(&args.out, args.force)?;

@@ -80,6 +80,15 @@ pub struct Summary {
     pub path: String,
     /// Where labels came from.
     pub label_source: String,
+    /// Label files read (each TextGrid counts).
+    #[serde(default)]
+    pub label_files: usize,
+    /// How the layer data is laid out (one file per layer, one stack, per utterance).
+    #[serde(default)]
+    pub layout: String,
+    /// Array files holding the layers.
+    #[serde(default)]
+    pub layer_files: usize,
     /// Frame shift in seconds.
     #[serde(deserialize_with = "super::nan::f64")]
     pub hop_s: f64,

@@ -203,6 +203,11 @@ pub fn inspect(s: &InspectSummary) -> String {
     );
     let _ = writeln!(
         o,
+        "files     {} ({} array files); labels from {} file(s)",
+        s.layout, s.layer_files, s.label_files
+    );
+    let _ = writeln!(
+        o,
         "size      {} on disk; a probe run needs about {}",
         human_bytes(s.bytes_on_disk),
         human_bytes(s.probe_memory_estimate)

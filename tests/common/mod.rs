@@ -225,3 +225,53 @@ pub fn demo_dir() -> PathBuf {
     }
     dir
 }
+
+// ---- per-utterance captures ------------------------------------------------------------------
+
+/// Write `utterances.tsv` in `dir` from (utterance, speaker) pairs and further columns
+/// (`extra`: column name and one value per utterance).
+pub fn write_utterances(dir: &Path, utts: &[(&str, &str)], extra: &[(&str, Vec<&str>)]) {
+    let mut t = String::from("utterance\tspeaker");
+    for (c, _) in extra {
+        t.push('\t');
+        t.push_str(c);
+    }
+    t.push('\n');
+    for (i, (u, s)) in utts.iter().enumerate() {
+        t.push_str(&format!("{u}\t{s}"));
+        for (_, v) in extra {
+            t.push('\t');
+            t.push_str(v[i]);
+        }
+        t.push('\n');
+    }
+    std::fs::create_dir_all(dir).unwrap();
+    std::fs::write(dir.join("utterances.tsv"), t).unwrap();
+}
+
+/// Write per-utterance stacks `acts/<utterance>.npy`, one (layers, frames, dim) array each.
+pub fn write_stacks<A: WritableElement>(dir: &Path, arrays: &[(&str, ndarray::Array3<A>)]) {
+    let acts = dir.join("acts");
+    std::fs::create_dir_all(&acts).unwrap();
+    for (u, a) in arrays {
+        let p = acts.join(format!("{u}.npy"));
+        ndarray_npy::write_npy(&p, a).unwrap_or_else(|e| panic!("{}: {e}", p.display()));
+    }
+}
+
+/// Write per-layer folders `layer_XX/<utterance>.npy` from per-utterance stacks: slot `l` of
+/// each stack goes to `layer_{l:02}/`.
+pub fn write_folders<A: WritableElement + Clone>(
+    dir: &Path,
+    arrays: &[(&str, ndarray::Array3<A>)],
+) {
+    for (u, a) in arrays {
+        for l in 0..a.shape()[0] {
+            let folder = dir.join(format!("layer_{l:02}"));
+            std::fs::create_dir_all(&folder).unwrap();
+            let p = folder.join(format!("{u}.npy"));
+            let m = a.index_axis(ndarray::Axis(0), l).to_owned();
+            ndarray_npy::write_npy(&p, &m).unwrap_or_else(|e| panic!("{}: {e}", p.display()));
+        }
+    }
+}

@@ -330,6 +330,7 @@ fn open_all(opts: &ReportOptions, common: &CommonOptions) -> crate::Result<Vec<C
     let mut caps = Vec::new();
     for p in &opts.captures {
         let cap = Capture::open(p, &opts.open)?;
+        super::print_notes(&cap.notes);
         cap.select_layers(common.layers.as_ref())?;
         caps.push(cap);
     }
