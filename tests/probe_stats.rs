@@ -20,6 +20,11 @@ const PHONES: usize = 4;
 /// current, next phone in the utterance, `#` at the edges) plus small noise; layer 1 one random
 /// vector per phone plus the same noise.
 fn typed_capture(dir: &Path, n_spk: usize) {
+    typed_capture_with_noise(dir, n_spk, 0.1);
+}
+
+/// [`typed_capture`] with noise of scale `noise` on both layers.
+fn typed_capture_with_noise(dir: &Path, n_spk: usize, noise: f32) {
     let dim = 96;
     let mut rng = ChaCha8Rng::seed_from_u64(7);
     let mut frames = Frames::new(&["utterance", "speaker", "phone", "word", "const"]);
@@ -64,7 +69,7 @@ fn typed_capture(dir: &Path, n_spk: usize) {
     let mut l1 = Array2::<f32>::zeros((rows.len(), dim));
     for (i, &(t, p)) in rows.iter().enumerate() {
         for j in 0..dim {
-            let e = 0.1 * gauss(&mut rng);
+            let e = noise * gauss(&mut rng);
             l0[[i, j]] = type_vec[[t, j]] + e;
             l1[[i, j]] = phone_vec[[p, j]] + e;
         }
@@ -323,4 +328,93 @@ fn bad_control_and_fold_options_are_refused() {
         &out,
         &["auto"],
     );
+}
+
+/// Accuracy of every (layer, task) record of a `probe.json`.
+fn accuracies(probe_json: &Path) -> Vec<(u64, String, f64)> {
+    records(probe_json.parent().unwrap())
+        .iter()
+        .map(|r| {
+            (
+                r["layer"].as_u64().unwrap(),
+                r["task"].as_str().unwrap().to_string(),
+                r["accuracy"].as_f64().unwrap(),
+            )
+        })
+        .collect()
+}
+
+/// Check that every probe delta of `compare_json` shows, for A and for B, exactly the accuracy
+/// of the same (layer, task) in the probe records `a` and `b`; returns how many were checked.
+fn deltas_match(compare_json: &Path, a: &[(u64, String, f64)], b: &[(u64, String, f64)]) -> usize {
+    let j = read_json(compare_json);
+    let deltas = j["probe_delta"].as_array().unwrap();
+    for d in deltas {
+        let key = (d["layer"].as_u64().unwrap(), d["task"].as_str().unwrap());
+        let find = |v: &[(u64, String, f64)]| {
+            v.iter()
+                .find(|(l, t, _)| (*l, t.as_str()) == key)
+                .unwrap_or_else(|| panic!("no probe record for {key:?}"))
+                .2
+        };
+        assert_eq!(d["accuracy_a"].as_f64().unwrap(), find(a), "{d}");
+        assert_eq!(d["accuracy_b"].as_f64().unwrap(), find(b), "{d}");
+    }
+    deltas.len()
+}
+
+#[test]
+fn one_split_for_the_whole_run() {
+    // The page must show one accuracy per (layer, task): report's probe deltas pair the probe
+    // stage's own predictions, and compare alone runs the probe stage's split and fits.
+    let tmp = tempfile::tempdir().unwrap();
+    let (a, b) = (tmp.path().join("capA"), tmp.path().join("capB"));
+    typed_capture_with_noise(&a, 6, 0.1);
+    typed_capture_with_noise(&b, 6, 3.0);
+    let rep = tmp.path().join("rep");
+    let Ran { code, stderr, .. } = run_text([
+        "report",
+        a.to_str().unwrap(),
+        b.to_str().unwrap(),
+        "--out",
+        rep.to_str().unwrap(),
+        "--quiet",
+        "--map-method",
+        "pca",
+        "--no-abx",
+    ]);
+    assert_eq!(code, 0, "{stderr}");
+    let (pa, pb) = (
+        accuracies(&rep.join("capA/probe.json")),
+        accuracies(&rep.join("capB/probe.json")),
+    );
+    // The captures differ, so a delta that matched by accident would show.
+    assert!(pa.iter().zip(&pb).any(|(x, y)| x.2 != y.2));
+    assert_eq!(deltas_match(&rep.join("compare.json"), &pa, &pb), 2 * 2);
+    // compare alone and probe alone agree too.
+    let (cmp, pra, prb) = (
+        tmp.path().join("cmp"),
+        tmp.path().join("pa"),
+        tmp.path().join("pb"),
+    );
+    for args in [
+        vec![
+            "compare",
+            a.to_str().unwrap(),
+            b.to_str().unwrap(),
+            "--out",
+            cmp.to_str().unwrap(),
+        ],
+        vec!["probe", a.to_str().unwrap(), "--out", pra.to_str().unwrap()],
+        vec!["probe", b.to_str().unwrap(), "--out", prb.to_str().unwrap()],
+    ] {
+        let Ran { code, stderr, .. } = run_text(args.iter().chain(&["--quiet"]));
+        assert_eq!(code, 0, "{args:?}: {stderr}");
+    }
+    let (pa1, pb1) = (
+        accuracies(&pra.join("probe.json")),
+        accuracies(&prb.join("probe.json")),
+    );
+    assert_eq!(pa1, pa);
+    assert_eq!(deltas_match(&cmp.join("compare.json"), &pa1, &pb1), 2 * 2);
 }

@@ -35,7 +35,7 @@ pub fn run(args: &CompareArgs, common: &CommonOptions, progress: &Progress) -> R
     write::check_out_dir(&args.out, args.force)?;
     let a = Capture::open(&args.capture_a, &args.open)?;
     let b = Capture::open(&args.capture_b, &args.open)?;
-    let report = compare::run(&a, &b, &args.compare, common, progress)?;
+    let report = compare::run(&a, &b, &args.compare, common, progress, None)?;
     write::prepare_out_dir(&args.out, args.force)?;
     write(&report, &args.out)?;
     print!("{}", render::summary::compare(&report));
