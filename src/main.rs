@@ -262,6 +262,9 @@ struct ReportCmd {
     /// Skip the ABX analysis.
     #[arg(long = "no-abx")]
     no_abx: bool,
+    /// Also compute the probes' MDL online code and draw its compression on the page.
+    #[arg(long)]
+    mdl: bool,
     #[command(flatten)]
     cap: CaptureArgs,
 }
@@ -389,6 +392,10 @@ impl ReportCmd {
                 ..Default::default()
             },
             abx: (!self.no_abx).then(AbxOptions::default),
+            probe: ProbeOptions {
+                mdl: self.mdl,
+                ..Default::default()
+            },
             ..Default::default()
         })
     }

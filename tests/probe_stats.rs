@@ -242,6 +242,7 @@ fn mdl_is_recorded_or_skipped_with_the_reason() {
         "--no-control",
     ]);
     assert_eq!(code, 0, "{stderr}");
+    assert!(out.join("probe_mdl.png").exists() && out.join("probe_mdl.svg").exists());
     let recs = records(&out);
     for r in &recs {
         assert_eq!(r["mdl_status"], "computed");
