@@ -60,7 +60,7 @@ fn typed_capture_with_noise(dir: &Path, n_spk: usize, noise: f32) {
             }
         }
     }
-    let mut gauss = |rng: &mut ChaCha8Rng| -> f32 {
+    let gauss = |rng: &mut ChaCha8Rng| -> f32 {
         (0..12).map(|_| rng.random_range(0.0f32..1.0)).sum::<f32>() - 6.0
     };
     let type_vec = Array2::from_shape_fn((types.len(), dim), |_| gauss(&mut rng));

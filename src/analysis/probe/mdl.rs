@@ -93,8 +93,7 @@ fn block_probabilities(
     x: &ArrayView2<f32>,
     y: &[u32],
     k: usize,
-    train: &[usize],
-    send: &[usize],
+    (train, send): (&[usize], &[usize]),
     alpha: f64,
     lb: &LbfgsOptions,
     warm: Option<&Warm>,
@@ -172,7 +171,7 @@ pub fn online_code(
     let mut warm: Option<Warm> = None;
     for w in ends.windows(2) {
         let (train, send) = (&order[..w[0]], &order[w[0]..w[1]]);
-        let (probs, next) = block_probabilities(&x, y, k, train, send, alpha, lb, warm.as_ref());
+        let (probs, next) = block_probabilities(&x, y, k, (train, send), alpha, lb, warm.as_ref());
         let b: f64 = send
             .iter()
             .zip(&probs)
