@@ -444,6 +444,43 @@ def row_probe_full(quick):
     )
 
 
+def row_probe_stats(quick):
+    """The demo probe with folds (auto), the type-level control and the MDL online code,
+    against the same command with one split and no control, and with folds and control but
+    no MDL, all in this run: what folds and MDL add."""
+    root = demo_root(quick)
+    cap = os.path.join(root, "final")
+    walls = {}
+    for key, extra in [("one split", ["--folds", "1", "--no-control"]),
+                       ("folds + control", []),
+                       ("folds + control + mdl", ["--mdl"])]:
+        out = os.path.join(OUT, "probe_stats_" + key.replace(" ", "").replace("+", "_"))
+        walls[key] = timed([BIN, "--threads", "2", "--quiet", "probe", cap, "--out", out, "--force"] + extra,
+                           timeout=STOP * 60).check("probe")
+    full = walls["folds + control + mdl"]
+    with open(os.path.join(out, "probe.json")) as f:
+        recs = json.load(f)["records"]
+    folds = sorted({r["folds"] for r in recs})
+    comp = {}
+    for r in recs:
+        comp[r["task"]] = max(comp.get(r["task"], 0.0), r.get("mdl_compression") or 0.0)
+    base, mid = walls["one split"].wall, walls["folds + control"].wall
+    return row(
+        f"`probe --mdl` on {os.path.relpath(cap, ROOT)} (folds auto, control, MDL online code)",
+        reference="same command, --folds 1 --no-control",
+        ref_s=base,
+        ours_s=full.wall,
+        ours_mem=full.rss_mib,
+        quality="folds per task " + "/".join(map(str, folds)) + "; best MDL compression "
+        + ", ".join(f"{t} {c:.1f}" for t, c in sorted(comp.items())),
+        target="< 60 s on 2 cores",
+        met=demo_met(quick, full.wall < 60, f"{full.wall:.1f} s"),
+        notes=(f"one split without control {base:.1f} s; folds + control {mid:.1f} s "
+               f"(+{mid - base:.1f} s, {mid / base:.2f}x); + MDL {full.wall:.1f} s (+{full.wall - mid:.1f} s, "
+               f"{full.wall / mid:.2f}x); --threads 2; ratio column = one-split time / this time"),
+    )
+
+
 def row_map_demo(quick):
     root = demo_root(quick)
     cap = os.path.join(root, "final")
@@ -524,6 +561,7 @@ def row_python_probe(quick):
 STOPPED_NAMES = {
     "row_demo_demo": ("`demo` generation", "< 2 min"),
     "row_probe_full": ("full `probe` on the demo's final capture", "< 30 s on 2 cores"),
+    "row_probe_stats": ("`probe --mdl` on the demo's final capture", "< 60 s on 2 cores"),
     "row_map_demo": ("`map` on the demo's final capture", "< 60 s"),
     "row_report_demo": ("`report` on the demo", "< 90 s, peak < 1 GiB, page < 15 MB"),
     "row_python_probe": ("Python `voxstrata.probe` vs `voxstrata probe`", "adds < 5%"),
@@ -674,6 +712,8 @@ def main():
     if want(4):
         add(4, not_built("full `probe` on the demo's final capture", "demo", "< 30 s on 2 cores, peak < 2x one layer f32 + 200 MiB")
             if demo_root(a.quick) is None else attempt(4, row_probe_full, a.quick))
+    if want(4) and demo_root(a.quick) is not None:
+        add(4, attempt(4, row_probe_stats, a.quick))
     if want(5):
         add(5, not_built("t-SNE 10 000 x 50", "map (t-SNE)", ">= 2x faster than openTSNE, trustworthiness >= openTSNE's - 0.01")
             if not built("map") else attempt(5, row_tsne, a.quick))

@@ -30,6 +30,7 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
         &opts,
         &CommonOptions::default(),
         &Progress::hidden(),
+        None,
     )?;
     let secs = t.elapsed().as_secs_f64();
     let rows: Vec<String> = r

@@ -86,6 +86,7 @@ fn main() {
         },
         &CommonOptions::default(),
         &Progress::hidden(),
+        None,
     )
     .unwrap();
     let s = t.elapsed().as_secs_f64();

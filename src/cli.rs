@@ -65,9 +65,10 @@ struct ProbeArgs {
     /// Split: auto, speaker, utterance or frame.
     #[arg(long, default_value = "auto")]
     split: voxstrata::select::split::SplitKind,
-    /// Grouped cross-validation folds (1: one train/test split).
-    #[arg(long, default_value_t = 1)]
-    folds: usize,
+    /// Grouped cross-validation folds: auto (5 folds when one split would test on fewer
+    /// than 10 speakers, or utterances for the speaker task), or a number (1: one split).
+    #[arg(long, default_value = "auto")]
+    folds: voxstrata::select::split::FoldCount,
     /// Share of groups held out for testing (one split).
     #[arg(long = "test-fraction", default_value_t = 0.25)]
     test_fraction: f64,
@@ -83,6 +84,12 @@ struct ProbeArgs {
     /// Skip the control task.
     #[arg(long = "no-control")]
     no_control: bool,
+    /// Label column whose values are the control task's types (default: phone in context).
+    #[arg(long = "control-by", value_name = "COLUMN")]
+    control_by: Option<String>,
+    /// Also compute the MDL online code length of every layer and task.
+    #[arg(long)]
+    mdl: bool,
     /// Stop instead of dropping classes or speakers the split cannot use.
     #[arg(long)]
     strict: bool,
@@ -257,6 +264,9 @@ struct ReportCmd {
     /// Skip the ABX analysis.
     #[arg(long = "no-abx")]
     no_abx: bool,
+    /// Also compute the probes' MDL online code and draw its compression on the page.
+    #[arg(long)]
+    mdl: bool,
     #[command(flatten)]
     cap: CaptureArgs,
 }
@@ -310,6 +320,8 @@ fn probe_options(p: &ProbeArgs) -> ProbeOptions {
         max_test_frames: p.max_test_frames,
         bootstrap: p.bootstrap,
         control: !p.no_control,
+        control_by: p.control_by.clone(),
+        mdl: p.mdl,
         strict: p.strict,
         ..Default::default()
     }
@@ -382,6 +394,10 @@ impl ReportCmd {
                 ..Default::default()
             },
             abx: (!self.no_abx).then(AbxOptions::default),
+            probe: ProbeOptions {
+                mdl: self.mdl,
+                ..Default::default()
+            },
             ..Default::default()
         })
     }

@@ -146,12 +146,14 @@ struct ProbeArgs {
     pool: String,
     context: usize,
     split: String,
-    folds: usize,
+    folds: String,
     test_fraction: f64,
     max_train_frames: usize,
     max_test_frames: usize,
     bootstrap: usize,
     no_control: bool,
+    control_by: Option<String>,
+    mdl: bool,
     strict: bool,
     alphas: Option<Vec<f64>>,
 }
@@ -170,11 +172,16 @@ impl ProbeArgs {
                 .parse()
                 .map_err(|e| PyValueError::new_err(format!("split: {e}")))?,
             test_fraction: self.test_fraction,
-            folds: self.folds,
+            folds: self
+                .folds
+                .parse()
+                .map_err(|e| PyValueError::new_err(format!("folds: {e}")))?,
             max_train_frames: self.max_train_frames,
             max_test_frames: self.max_test_frames,
             bootstrap: self.bootstrap,
             control: !self.no_control,
+            control_by: self.control_by.clone(),
+            mdl: self.mdl,
             strict: self.strict,
             ..Default::default()
         };

@@ -43,8 +43,9 @@ def _frames(X, labels, groups, utterances):
 
 
 def probe(X, labels, groups, *, utterances=None, tasks=None, pool="frame", context=0, split="auto",
-          folds=1, test_fraction=0.25, max_train_frames=20_000, max_test_frames=50_000,
-          bootstrap=1000, no_control=False, strict=False, alphas=None, drop_label=None,
+          folds="auto", test_fraction=0.25, max_train_frames=20_000, max_test_frames=50_000,
+          bootstrap=1000, no_control=False, control_by=None, mdl=False, strict=False,
+          alphas=None, drop_label=None,
           merge_labels=None, allow_nonfinite=False, seed=0, threads=0, layers=None, quiet=True):
     """Linear probes of every layer of `X` for each label task: a list of dicts with exactly
     the fields of the records in probe.json.
@@ -72,12 +73,14 @@ def probe(X, labels, groups, *, utterances=None, tasks=None, pool="frame", conte
         "pool": _c.text("pool", pool),
         "context": _c.nonneg_int("context", context),
         "split": _c.text("split", split),
-        "folds": _c.nonneg_int("folds", folds),
+        "folds": "auto" if folds == "auto" else str(_c.nonneg_int("folds", folds)),
         "test_fraction": _c.real("test_fraction", test_fraction),
         "max_train_frames": _c.nonneg_int("max_train_frames", max_train_frames),
         "max_test_frames": _c.nonneg_int("max_test_frames", max_test_frames),
         "bootstrap": _c.nonneg_int("bootstrap", bootstrap),
         "no_control": _c.flag("no_control", no_control),
+        "control_by": None if control_by is None else _c.text("control_by", control_by),
+        "mdl": _c.flag("mdl", mdl),
         "strict": _c.flag("strict", strict),
         "alphas": alphas,
     }

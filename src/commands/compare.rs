@@ -37,7 +37,7 @@ pub fn run(args: &CompareArgs, common: &CommonOptions, progress: &Progress) -> R
     let b = Capture::open(&args.capture_b, &args.open)?;
     super::print_notes(&a.notes);
     super::print_notes(&b.notes);
-    let report = compare::run(&a, &b, &args.compare, common, progress)?;
+    let report = compare::run(&a, &b, &args.compare, common, progress, None)?;
     write::prepare_out_dir(&args.out, args.force)?;
     write(&report, &args.out)?;
     print!("{}", render::summary::compare(&report));

@@ -42,8 +42,8 @@ pub fn run(args: &ProbeArgs, common: &CommonOptions, progress: &Progress) -> Res
     Ok(())
 }
 
-/// Write `probe.json`, `probe.csv`, the `probe` figure and `confusion_<task>` figures into
-/// `dir` (which must exist).
+/// Write `probe.json`, `probe.csv`, the `probe` figure, the `probe_mdl` figure (with
+/// `--mdl`) and `confusion_<task>` figures into `dir` (which must exist).
 pub fn write(r: &ProbeReport, dir: &Path) -> Result<Written, Error> {
     let mut extra = serde_json::Map::new();
     let mut leak = serde_json::Map::new();
@@ -69,6 +69,12 @@ pub fn write(r: &ProbeReport, dir: &Path) -> Result<Written, Error> {
     };
     let curves = render::draw(&LayerCurves::new(r), "probe", "probe accuracy by layer")?;
     out.figure(dir, curves)?;
+    if let Some(m) = render::mdl::MdlCurves::new(r) {
+        out.figure(
+            dir,
+            render::draw(&m, "probe_mdl", "MDL compression by layer")?,
+        )?;
+    }
     for c in &r.confusion {
         let stem = format!("confusion_{}", write::file_stem(&c.task));
         let title = format!("{} confusions at the best layer", c.task);

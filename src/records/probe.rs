@@ -23,7 +23,7 @@ pub struct ProbeRecord {
     pub n_test: usize,
     /// Classes of the task after dropping unusable ones.
     pub n_classes: usize,
-    /// Held-out accuracy (mean over folds).
+    /// Held-out accuracy over every test item, pooled across folds (each item tested once).
     #[serde(deserialize_with = "super::nan::f64")]
     pub accuracy: f64,
     /// 95 % cluster-bootstrap interval, low end.
@@ -32,21 +32,24 @@ pub struct ProbeRecord {
     /// 95 % cluster-bootstrap interval, high end.
     #[serde(deserialize_with = "super::nan::f64")]
     pub ci_high: f64,
-    /// Macro-averaged F1 (mean over folds).
+    /// Macro-averaged F1 of the pooled test predictions.
     #[serde(deserialize_with = "super::nan::f64")]
     pub macro_f1: f64,
-    /// Balanced accuracy (mean over folds).
+    /// Balanced accuracy of the pooled test predictions.
     #[serde(deserialize_with = "super::nan::f64")]
     pub balanced_accuracy: f64,
-    /// Accuracy of predicting the training majority class.
+    /// Accuracy of predicting each fold's training majority class, pooled.
     #[serde(deserialize_with = "super::nan::f64")]
     pub majority_baseline: f64,
-    /// Accuracy of the same probe on the control task (NaN when the control is off).
+    /// Accuracy of the same probe on the control task, pooled (NaN when the control is off).
     #[serde(deserialize_with = "super::nan::f64")]
     pub control_accuracy: f64,
     /// accuracy − control_accuracy.
     #[serde(deserialize_with = "super::nan::f64")]
     pub selectivity: f64,
+    /// What the control task's types are: `phone in context` (the default), `<task> in
+    /// context` (no phone column) or the `--control-by` column; `none` when the control is off.
+    pub control_by: String,
     /// Chosen inverse penalty C (median over folds).
     #[serde(deserialize_with = "super::nan::f64")]
     pub c: f64,
@@ -56,6 +59,37 @@ pub struct ProbeRecord {
     pub accuracy_sd: Option<f64>,
     /// Standard deviation of control accuracy over folds (None for one split).
     pub control_accuracy_sd: Option<f64>,
+    /// MDL online code (Voita & Titov 2020): `off`, `computed`, or `skipped: <why>`.
+    pub mdl_status: String,
+    /// Training items the code transmits (the first fold's training side; 0 when not computed).
+    pub mdl_items: usize,
+    /// items × log2(classes): the uniform code length in bits (NaN when not computed).
+    #[serde(deserialize_with = "super::nan::f64")]
+    pub mdl_uniform_bits: f64,
+    /// Online code length in bits (NaN when not computed).
+    #[serde(deserialize_with = "super::nan::f64")]
+    pub mdl_online_bits: f64,
+    /// mdl_uniform_bits / mdl_online_bits (NaN when not computed).
+    #[serde(deserialize_with = "super::nan::f64")]
+    pub mdl_compression: f64,
+}
+
+/// The test predictions behind one record, pooled over folds in fold order: what `compare`
+/// needs to pair two captures' probes on the same items (not written to disk).
+#[derive(Clone, Debug, Default)]
+pub struct TaskPredictions {
+    /// Layer number.
+    pub layer: usize,
+    /// Task name.
+    pub task: String,
+    /// First frame of each test item (identifies the item across captures).
+    pub test_frames: Vec<usize>,
+    /// Whether each test item was predicted right.
+    pub correct: Vec<bool>,
+    /// Bootstrap cluster of each test item (speaker; utterance for the speaker task).
+    pub cluster: Vec<u32>,
+    /// Training items per fit (mean over folds).
+    pub n_train: usize,
 }
 
 /// The groups on each side of one fold.
@@ -89,6 +123,10 @@ pub struct TaskSetup {
     pub folds: Vec<FoldSides>,
     /// Proof of the split's promise on the items used.
     pub leakage_check: LeakageCheck,
+    /// What the control task's types are (as in the records).
+    pub control_by: String,
+    /// Distinct control types among the task's items (0 when the control is off).
+    pub control_types: usize,
 }
 
 /// Confusion matrix of a task at its best layer.
@@ -153,4 +191,7 @@ pub struct ProbeReport {
     pub summary: ProbeSummary,
     /// Warnings and notes for the user (dropped classes, padding, degenerate intervals).
     pub notes: Vec<String>,
+    /// Test predictions per record, for probe deltas (not serialised).
+    #[serde(skip)]
+    pub predictions: Vec<TaskPredictions>,
 }

@@ -8,6 +8,7 @@
 pub mod abx;
 pub mod compare;
 pub mod map;
+pub mod mdl;
 pub mod page;
 pub mod palette;
 pub mod probe;

@@ -59,6 +59,108 @@ impl std::str::FromStr for SplitKind {
     }
 }
 
+/// How many folds to use: `auto` (grouped K-fold, K = 5 or fewer when groups are fewer,
+/// whenever one split would test on fewer than [`AUTO_MIN_TEST_GROUPS`] groups; otherwise one
+/// split), or a fixed number (1: one split).
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum FoldCount {
+    /// Folds when one split would test on too few groups.
+    Auto,
+    /// This many folds.
+    Fixed(usize),
+}
+
+/// Folds `auto` uses when one split would test on too few groups.
+pub const AUTO_FOLDS: usize = 5;
+
+/// Fewest test groups (speakers; utterances for the speaker task) a single split may have
+/// before `auto` switches to folds (common practice, our choice).
+pub const AUTO_MIN_TEST_GROUPS: usize = 10;
+
+impl std::str::FromStr for FoldCount {
+    type Err = String;
+    fn from_str(s: &str) -> Result<Self, String> {
+        if s == "auto" {
+            return Ok(FoldCount::Auto);
+        }
+        s.parse::<usize>()
+            .map(FoldCount::Fixed)
+            .map_err(|_| format!("expected auto or a whole number, found '{s}'"))
+    }
+}
+
+impl Serialize for FoldCount {
+    fn serialize<S: serde::Serializer>(&self, s: S) -> Result<S::Ok, S::Error> {
+        match self {
+            FoldCount::Auto => s.serialize_str("auto"),
+            FoldCount::Fixed(n) => s.serialize_u64(*n as u64),
+        }
+    }
+}
+
+/// The number of test groups one split would have: `test_fraction` of the groups, at least
+/// one and not all (for the speaker task's split, summed over speakers).
+fn single_split_test_groups(
+    kind: SplitKind,
+    speaker_task: bool,
+    utt: &[u32],
+    speaker: &[u32],
+    test_fraction: f64,
+) -> (usize, usize) {
+    let share = |m: usize| ((test_fraction * m as f64).round() as usize).clamp(1, m.max(2) - 1);
+    let distinct = |v: &[u32]| {
+        let mut v = v.to_vec();
+        v.sort_unstable();
+        v.dedup();
+        v.len()
+    };
+    let kind = kind.resolve(speaker_task);
+    if speaker_task && kind == SplitKind::Utterance {
+        let mut pairs: Vec<(u32, u32)> = speaker.iter().copied().zip(utt.iter().copied()).collect();
+        pairs.sort_unstable();
+        pairs.dedup();
+        let mut test = 0;
+        let mut i = 0;
+        while i < pairs.len() {
+            let j = pairs[i..].iter().take_while(|p| p.0 == pairs[i].0).count();
+            test += share(j);
+            i += j;
+        }
+        return (test, pairs.len());
+    }
+    let m = match kind {
+        SplitKind::Speaker => distinct(speaker),
+        SplitKind::Utterance => distinct(utt),
+        _ => utt.len(),
+    };
+    (share(m), m)
+}
+
+/// The number of folds `count` means for these items: `auto` gives K = [`AUTO_FOLDS`] (fewer
+/// when there are fewer groups) when one split would test on fewer than
+/// [`AUTO_MIN_TEST_GROUPS`] groups, else 1.
+pub fn resolve_folds(
+    count: FoldCount,
+    kind: SplitKind,
+    speaker_task: bool,
+    utt: &[u32],
+    speaker: &[u32],
+    test_fraction: f64,
+) -> usize {
+    match count {
+        FoldCount::Fixed(n) => n,
+        FoldCount::Auto => {
+            let (test, groups) =
+                single_split_test_groups(kind, speaker_task, utt, speaker, test_fraction);
+            if test < AUTO_MIN_TEST_GROUPS && groups >= 2 {
+                AUTO_FOLDS.min(groups)
+            } else {
+                1
+            }
+        }
+    }
+}
+
 /// Split settings.
 #[derive(Clone, Debug)]
 pub struct SplitOptions {
@@ -174,6 +276,12 @@ fn within_speaker_folds(
         }
     }
     let n_utt = utt.iter().map(|&u| u as usize + 1).max().unwrap_or(0);
+    let total: usize = utts_of.iter().map(|l| l.len()).sum();
+    if folds > 1 && folds > total {
+        return Err(format!(
+            "--folds {folds} is more than the {total} utterances there are to deal over the folds"
+        ));
+    }
     let mut utt_fold = vec![usize::MAX; n_utt];
     let mut speakers_seen = 0;
     for list in utts_of.iter_mut() {
@@ -228,6 +336,12 @@ fn group_folds(
         SplitKind::Utterance => "utterances",
         _ => "items",
     };
+    if folds > 1 && folds > ids.len() {
+        return Err(format!(
+            "--folds {folds} is more than the {} {what} there are to deal over the folds",
+            ids.len()
+        ));
+    }
     let need = folds.max(2);
     if ids.len() < need {
         let hint = if kind == SplitKind::Speaker {
@@ -412,6 +526,50 @@ mod tests {
                 "{chk:?}"
             );
         }
+    }
+
+    #[test]
+    fn auto_folds_follow_the_number_of_test_groups() {
+        let (utt, spk) = toy();
+        // 8 speakers: one split tests on 2 (< 10), so 5 folds.
+        let k = resolve_folds(FoldCount::Auto, SplitKind::Auto, false, &utt, &spk, 0.25);
+        assert_eq!(k, 5);
+        // 40 speakers (one utterance each): one split tests on 10, so one split.
+        let spk40: Vec<u32> = utt.clone();
+        let k = resolve_folds(FoldCount::Auto, SplitKind::Auto, false, &utt, &spk40, 0.25);
+        assert_eq!(k, 1);
+        // 3 speakers: fewer folds than 5.
+        let k = resolve_folds(
+            FoldCount::Auto,
+            SplitKind::Auto,
+            false,
+            &[0, 1, 2],
+            &[0, 1, 2],
+            0.25,
+        );
+        assert_eq!(k, 3);
+        // The speaker task counts test utterances: 8 speakers × round(0.25 × 5) = 8 < 10.
+        let k = resolve_folds(FoldCount::Auto, SplitKind::Auto, true, &utt, &spk, 0.25);
+        assert_eq!(k, 5);
+        assert_eq!(
+            resolve_folds(FoldCount::Fixed(3), SplitKind::Auto, true, &utt, &spk, 0.25),
+            3
+        );
+        let e = make_split(
+            SplitKind::Speaker,
+            false,
+            &utt,
+            &spk,
+            &SplitOptions {
+                test_fraction: 0.25,
+                folds: 9,
+            },
+            0,
+        )
+        .unwrap_err();
+        assert!(e.contains("--folds 9") && e.contains("8 speakers"), "{e}");
+        assert_eq!("auto".parse::<FoldCount>(), Ok(FoldCount::Auto));
+        assert_eq!("4".parse::<FoldCount>(), Ok(FoldCount::Fixed(4)));
     }
 
     #[test]

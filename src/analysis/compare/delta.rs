@@ -71,6 +71,38 @@ pub fn probe_delta<P: FitPredict + ?Sized>(
     opts: &DeltaOptions,
     seed: u64,
 ) -> Result<ProbeDelta, String> {
+    let o = fold_outcomes(xa, xb, input, probe, seed)?;
+    let paired = PairedCorrect {
+        layer: input.layer,
+        task: input.task,
+        n_train: input.train.len(),
+        a: &o.a,
+        b: &o.b,
+        clusters: &o.clusters,
+    };
+    Ok(delta_from_correct(&paired, opts, seed))
+}
+
+/// Outcomes of one fold on A and on B: whether each test row was predicted right, and its
+/// cluster.
+#[derive(Default)]
+pub struct Outcomes {
+    /// A's outcome per test row.
+    pub a: Vec<bool>,
+    /// B's outcome per test row.
+    pub b: Vec<bool>,
+    /// Cluster per test row.
+    pub clusters: Vec<u32>,
+}
+
+/// Train `probe` on A's and on B's training rows of `input` and score their test rows.
+pub fn fold_outcomes<P: FitPredict + ?Sized>(
+    xa: &ArrayView2<f32>,
+    xb: &ArrayView2<f32>,
+    input: &DeltaInput,
+    probe: &P,
+    seed: u64,
+) -> Result<Outcomes, String> {
     let y_train: Vec<u32> = input.train.iter().map(|&r| input.labels[r]).collect();
     let y_test: Vec<u32> = input.test.iter().map(|&r| input.labels[r]).collect();
     let g_train: Vec<u32> = input.train.iter().map(|&r| input.groups[r]).collect();
@@ -96,25 +128,51 @@ pub fn probe_delta<P: FitPredict + ?Sized>(
         }
         Ok(pred.iter().zip(&y_test).map(|(p, y)| p == y).collect())
     };
-    let ra = run(xa)?;
-    let rb = run(xb)?;
+    Ok(Outcomes {
+        a: run(xa)?,
+        b: run(xb)?,
+        clusters: g_test,
+    })
+}
+
+/// Whether each test item was predicted right on A and on B (same items, same order), with
+/// each item's bootstrap cluster.
+pub struct PairedCorrect<'a> {
+    /// Layer number.
+    pub layer: usize,
+    /// Task name.
+    pub task: &'a str,
+    /// Training items per fit.
+    pub n_train: usize,
+    /// A's outcome per test item.
+    pub a: &'a [bool],
+    /// B's outcome per test item.
+    pub b: &'a [bool],
+    /// Cluster per test item.
+    pub clusters: &'a [u32],
+}
+
+/// The delta record of paired outcomes: both accuracies, their difference with a paired
+/// cluster-bootstrap interval, and McNemar's test.
+pub fn delta_from_correct(p: &PairedCorrect, opts: &DeltaOptions, seed: u64) -> ProbeDelta {
+    let (ra, rb, g_test) = (p.a, p.b, p.clusters);
     let n = ra.len().max(1) as f64;
     let acc_a = ra.iter().filter(|&&v| v).count() as f64 / n;
     let acc_b = rb.iter().filter(|&&v| v).count() as f64 / n;
     let iv = stats::paired_cluster_bootstrap(
-        &ra,
-        &rb,
-        &g_test,
+        ra,
+        rb,
+        g_test,
         opts.n_boot,
         opts.level,
         seed ^ 0x5eed_de17a,
     );
-    let m = stats::mcnemar_paired(&ra, &rb);
-    Ok(ProbeDelta {
-        layer: input.layer,
-        task: input.task.to_string(),
-        n_train: input.train.len(),
-        n_test: input.test.len(),
+    let m = stats::mcnemar_paired(ra, rb);
+    ProbeDelta {
+        layer: p.layer,
+        task: p.task.to_string(),
+        n_train: p.n_train,
+        n_test: ra.len(),
         accuracy_a: acc_a,
         ci_low_a: iv.a.0,
         ci_high_a: iv.a.1,
@@ -128,7 +186,7 @@ pub fn probe_delta<P: FitPredict + ?Sized>(
         mcnemar_method: m.method,
         b: m.b,
         c: m.c,
-    })
+    }
 }
 
 #[cfg(test)]

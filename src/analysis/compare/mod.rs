@@ -4,11 +4,12 @@
 //! McNemar's test and a paired speaker bootstrap on the difference).
 //!
 //! Frames are paired row by row (the label tables must agree), or by (utterance, frame index
-//! within the utterance) with [`MatchBy::Utterance`]. Probe deltas use frame-level items, the
-//! default split of the probe stage (speaker-disjoint; utterance-disjoint with every speaker on
-//! both sides for the speaker task), the same split and seed for A and B, McNemar's test
-//! (exact binomial below 25 discordant pairs, else chi-square without continuity correction)
-//! and a paired cluster bootstrap over test speakers (test utterances for the speaker task).
+//! within the utterance) with [`MatchBy::Utterance`]. Probe deltas use one split for the whole
+//! run ([`probe_deltas`]): the probe stage's folds and test predictions (frame-level items, the
+//! default split rule with `auto` folds, the probe stage's seeds), the same for A and B,
+//! pooled over folds, with McNemar's test (exact binomial below 25 discordant pairs, else
+//! chi-square without continuity correction) and a paired cluster bootstrap over test speakers
+//! (test utterances for the speaker task).
 //!
 //! Linear CKA streams layers: one A layer and one B layer are resident at a time, and
 //! everything is computed in feature space (p × q products), never with n × n Gram matrices.
@@ -16,21 +17,21 @@
 pub mod cka;
 pub mod delta;
 mod pair;
+mod probe_deltas;
 
 use ndarray::Array2;
 use rand_chacha::rand_core::SeedableRng;
 use rand_chacha::ChaCha8Rng;
 use serde::Serialize;
 
-use crate::capture::{Capture, CaptureError, FrameTable, LabelTask, UNLABELLED};
+use crate::capture::{Capture, CaptureError};
+use crate::records::probe::ProbeReport;
 use crate::records::CaptureRef;
 use crate::{CommonOptions, Progress};
 
 pub use crate::records::compare::{CkaRecord, CompareReport, Estimator, Kernel, MatchBy, Pairing};
 pub use delta::{FitPredict, ProbeDelta};
 pub use pair::{pair_frames, FrameMismatch};
-
-use crate::analysis::seed::mix;
 
 /// Errors of the compare stage.
 #[derive(Debug, thiserror::Error)]
@@ -154,13 +155,18 @@ fn same_capture(a: &Capture, b: &Capture) -> bool {
 
 /// Compare captures `a` and `b`: pair frames, compute CKA between every selected layer of A
 /// and every selected layer of B, then (unless `opts.probe` is off) probe deltas on every
-/// layer number present in both, with the probe trainer of [`crate::analysis::probe`] (see [`delta`]).
+/// layer number present in both, with the probe trainer of [`crate::analysis::probe`] (see
+/// [`delta`]). `probes` are the probe stage's reports of A and B when the caller ran it
+/// (`report`): the deltas then pair their test predictions, so each (layer, task) shows the
+/// same accuracy as the probe stage; without them the probe stage is run here with its
+/// default split rule and seed.
 pub fn run(
     a: &Capture,
     b: &Capture,
     opts: &CompareOptions,
     common: &CommonOptions,
     progress: &Progress,
+    probes: Option<[&ProbeReport; 2]>,
 ) -> Result<CompareReport, CompareError> {
     opts.check()?;
     let sel_a = a.select_layers(common.layers.as_ref())?;
@@ -198,7 +204,14 @@ pub fn run(
         ));
     }
     let probe_delta = if opts.probe {
-        all_probe_deltas(&layers, &pairing, opts, common, progress, &mut notes)?
+        let ctx = probe_deltas::Context {
+            layers: &layers,
+            pairing: &pairing,
+            opts,
+            common,
+            progress,
+        };
+        probe_deltas::all(&ctx, probes, &mut notes)?
     } else {
         Vec::new()
     };
@@ -225,7 +238,7 @@ fn capture_ref(c: &Capture) -> CaptureRef {
 }
 
 /// The two captures and the layers selected in each (indices).
-struct LayerPair<'a> {
+pub(crate) struct LayerPair<'a> {
     a: &'a Capture,
     b: &'a Capture,
     sel_a: &'a [usize],
@@ -309,36 +322,6 @@ fn cka_records(
         }
     }
     cka
-}
-
-/// Probe deltas on every layer number selected in both captures, on all paired frames or the
-/// `--max-frames` sample (not the RBF subsample).
-fn all_probe_deltas(
-    l: &LayerPair,
-    pairing: &Pairing,
-    opts: &CompareOptions,
-    common: &CommonOptions,
-    progress: &Progress,
-    notes: &mut Vec<String>,
-) -> Result<Vec<ProbeDelta>, CompareError> {
-    let (a, b) = (l.a, l.b);
-    let shared: Vec<(usize, usize)> = l
-        .sel_a
-        .iter()
-        .filter_map(|&ia| {
-            b.layer_index(a.layers[ia].id)
-                .filter(|ib| l.sel_b.contains(ib))
-                .map(|ib| (ia, ib))
-        })
-        .collect();
-    let keep = crate::select::sample::uniform_sorted(
-        pairing.paired,
-        opts.max_frames.unwrap_or(usize::MAX),
-        common.seed ^ 0xc0a1_0001,
-    );
-    let ra: Vec<usize> = keep.iter().map(|&k| pairing.rows_a[k]).collect();
-    let rb: Vec<usize> = keep.iter().map(|&k| pairing.rows_b[k]).collect();
-    probe_deltas(a, b, &shared, &ra, &rb, opts, common, progress, notes)
 }
 
 /// Linear CKA matrix, streaming: for each A layer (read once), loop over B layers. B's Gram
@@ -475,291 +458,6 @@ fn rbf_matrix(
             out[[i, j]] = k.iter().zip(l.iter()).map(|(x, &y)| x * y as f64).sum();
         }
         step.inc(1);
-    }
-    Ok(out)
-}
-
-/// One label task's items and split for probe deltas (rows index the paired frames in use).
-struct DeltaPlan {
-    name: String,
-    /// Class (0..n_classes) per row; `UNLABELLED` where the row has no label.
-    labels: Vec<u32>,
-    n_classes: usize,
-    /// Inner-split group and bootstrap cluster per row: the speaker, or the utterance for
-    /// the speaker task (whose speakers are on both sides of the split).
-    groups: Vec<u32>,
-    train: Vec<usize>,
-    test: Vec<usize>,
-}
-
-/// Plan the delta tasks on the paired frames in use (`rows_a`: A's rows; labels agree with
-/// B's by construction of the pairing). Tasks that cannot be split are skipped with a note.
-fn plan_deltas(
-    a: &Capture,
-    b: &Capture,
-    rows_a: &[usize],
-    opts: &CompareOptions,
-    seed: u64,
-    notes: &mut Vec<String>,
-) -> Result<Vec<DeltaPlan>, CompareError> {
-    let names = delta_task_names(a, b, opts)?;
-    let spk = a.frames.frame_speaker();
-    let mut plans = Vec::new();
-    for (ti, name) in names.iter().enumerate() {
-        let Some(task) = a.frames.task(name) else {
-            continue;
-        };
-        let rows = DeltaRows {
-            frames: &a.frames,
-            speaker: &spk,
-            rows_a,
-        };
-        let split_seed = mix(seed, 600 + ti as u64);
-        if let Some(p) = plan_delta(&rows, task, name, opts, split_seed, notes) {
-            plans.push(p);
-        }
-    }
-    Ok(plans)
-}
-
-/// The delta tasks (default: A's default tasks that B carries too, and `speaker`), each
-/// checked to be a label column of both captures.
-fn delta_task_names(
-    a: &Capture,
-    b: &Capture,
-    opts: &CompareOptions,
-) -> Result<Vec<String>, CompareError> {
-    let names: Vec<String> = if opts.tasks.is_empty() {
-        // Paired captures carry the same label columns (checked by the pairing).
-        let mut v = a.frames.default_tasks();
-        v.retain(|n| b.frames.task(n).is_some() || n == "speaker");
-        v
-    } else {
-        opts.tasks.clone()
-    };
-    for n in &names {
-        for c in [a, b] {
-            if c.frames.task(n).is_none() {
-                return Err(CompareError::Input(format!(
-                    "{}: --task {n}: not a label column; the capture has: {}",
-                    c.dir.display(),
-                    c.frames.task_names().join(", ")
-                )));
-            }
-        }
-    }
-    Ok(names)
-}
-
-/// A's frame table, each frame's speaker, and A's rows of the pairs in use.
-struct DeltaRows<'a> {
-    frames: &'a FrameTable,
-    speaker: &'a [u32],
-    rows_a: &'a [usize],
-}
-
-/// The task's class per row in use, the classes present renumbered `0..k` in order of first
-/// appearance (`UNLABELLED` kept), and `k`.
-fn renumber_labels(task: &LabelTask, rows_a: &[usize]) -> (Vec<u32>, u32) {
-    let mut remap = vec![UNLABELLED; task.classes.len()];
-    let mut k = 0u32;
-    let mut labels = Vec::with_capacity(rows_a.len());
-    for &r in rows_a {
-        let c = task.codes[r];
-        if c == UNLABELLED {
-            labels.push(UNLABELLED);
-            continue;
-        }
-        if remap[c as usize] == UNLABELLED {
-            remap[c as usize] = k;
-            k += 1;
-        }
-        labels.push(remap[c as usize]);
-    }
-    (labels, k)
-}
-
-/// Plan one delta task: its labelled rows split once (seeded with `split_seed`); None, with a
-/// note, when the task cannot be split.
-fn plan_delta(
-    rows: &DeltaRows,
-    task: &LabelTask,
-    name: &str,
-    opts: &CompareOptions,
-    split_seed: u64,
-    notes: &mut Vec<String>,
-) -> Option<DeltaPlan> {
-    use crate::select::split::{make_split, SplitKind, SplitOptions};
-    let rows_a = rows.rows_a;
-    let speaker_task = name == "speaker";
-    let (labels, k) = renumber_labels(task, rows_a);
-    let items: Vec<usize> = (0..rows_a.len())
-        .filter(|&i| labels[i] != UNLABELLED)
-        .collect();
-    if k < 2 || items.len() < 4 {
-        notes.push(format!(
-            "probe deltas for '{name}' skipped: fewer than 2 classes or 4 labelled frames"
-        ));
-        return None;
-    }
-    let utt: Vec<u32> = items
-        .iter()
-        .map(|&i| rows.frames.frame_utt[rows_a[i]])
-        .collect();
-    let sp: Vec<u32> = items.iter().map(|&i| rows.speaker[rows_a[i]]).collect();
-    let sopts = SplitOptions {
-        test_fraction: opts.test_fraction,
-        folds: 1,
-    };
-    let split = match make_split(SplitKind::Auto, speaker_task, &utt, &sp, &sopts, split_seed) {
-        Ok(s) => s,
-        Err(e) => {
-            notes.push(format!("probe deltas for '{name}' skipped: {e}"));
-            return None;
-        }
-    };
-    let fold = split.folds.first()?;
-    if fold.train.is_empty() || fold.test.is_empty() {
-        notes.push(format!(
-            "probe deltas for '{name}' skipped: the split left one side empty"
-        ));
-        return None;
-    }
-    // Inner-split group and bootstrap cluster: the utterance for the speaker task.
-    let cluster = |j: usize| if speaker_task { utt[j] } else { sp[j] };
-    note_few_clusters(
-        fold.test.iter().map(|&j| cluster(j)),
-        name,
-        speaker_task,
-        notes,
-    );
-    let mut groups = vec![0u32; rows_a.len()];
-    for (j, &i) in items.iter().enumerate() {
-        groups[i] = cluster(j);
-    }
-    Some(DeltaPlan {
-        name: name.to_string(),
-        labels,
-        n_classes: k as usize,
-        groups,
-        train: fold.train.iter().map(|&j| items[j]).collect(),
-        test: fold.test.iter().map(|&j| items[j]).collect(),
-    })
-}
-
-/// Note when fewer than 5 test clusters make the bootstrap intervals unreliable.
-fn note_few_clusters(
-    test_clusters: impl Iterator<Item = u32>,
-    name: &str,
-    speaker_task: bool,
-    notes: &mut Vec<String>,
-) {
-    let mut test_clusters: Vec<u32> = test_clusters.collect();
-    test_clusters.sort_unstable();
-    test_clusters.dedup();
-    if test_clusters.len() < 5 {
-        notes.push(format!(
-            "probe deltas for '{name}': only {} test {} — the bootstrap intervals resample so few clusters that they are unreliable",
-            test_clusters.len(),
-            if speaker_task { "utterances" } else { "speakers" }
-        ));
-    }
-}
-
-/// The shipped probe (softmax regression with its penalty search, from [`crate::analysis::probe`]).
-struct LinearProbe<'a>(&'a crate::analysis::probe::ProbeOptions);
-
-impl FitPredict for LinearProbe<'_> {
-    fn fit_predict(
-        &self,
-        x_train: &ndarray::ArrayView2<f32>,
-        y_train: &[u32],
-        n_classes: usize,
-        x_test: &ndarray::ArrayView2<f32>,
-        inner_groups: &[u32],
-        seed: u64,
-    ) -> Result<Vec<u32>, String> {
-        crate::analysis::probe::fit_predict(
-            x_train.view(),
-            y_train,
-            n_classes,
-            x_test.view(),
-            inner_groups,
-            self.0,
-            seed,
-        )
-        .map(|f| f.pred)
-        .map_err(|e| e.to_string())
-    }
-}
-
-/// Probe deltas for every shared layer (A index, B index) and planned task: one A and one B
-/// layer resident at a time.
-#[allow(clippy::too_many_arguments)]
-fn probe_deltas(
-    a: &Capture,
-    b: &Capture,
-    shared: &[(usize, usize)],
-    rows_a: &[usize],
-    rows_b: &[usize],
-    opts: &CompareOptions,
-    common: &CommonOptions,
-    progress: &Progress,
-    notes: &mut Vec<String>,
-) -> Result<Vec<ProbeDelta>, CompareError> {
-    let plans = plan_deltas(a, b, rows_a, opts, common.seed, notes)?;
-    if shared.is_empty() || plans.is_empty() {
-        if shared.is_empty() {
-            notes.push("probe deltas skipped: no layer number is present in both captures".into());
-        }
-        return Ok(Vec::new());
-    }
-    let popts = crate::analysis::probe::ProbeOptions {
-        bootstrap: opts.bootstrap,
-        control: false,
-        ..Default::default()
-    };
-    let dopts = delta::DeltaOptions {
-        n_boot: opts.bootstrap,
-        level: 0.95,
-    };
-    let probe = LinearProbe(&popts);
-    let step = progress.step("probe deltas", (shared.len() * plans.len()) as u64);
-    let mut out = Vec::new();
-    for &(ia, ib) in shared {
-        let layer = a.layers[ia].id;
-        step.message(&format!("probe deltas, layer {layer}"));
-        let xa = a.read_layer_rows(ia, rows_a)?;
-        let xb = b.read_layer_rows(ib, rows_b)?;
-        for (ti, p) in plans.iter().enumerate() {
-            // Training rows capped as the probe stage caps them (the same stratified
-            // subsample, each class keeping its share).
-            let train = crate::select::sample::by_class(
-                &p.train,
-                &p.labels,
-                popts.max_train_frames,
-                mix(common.seed, 700 + ti as u64),
-            );
-            let input = delta::DeltaInput {
-                layer,
-                task: &p.name,
-                labels: &p.labels,
-                n_classes: p.n_classes,
-                groups: &p.groups,
-                train: &train,
-                test: &p.test,
-            };
-            let seed = mix(common.seed, 800 + (layer as u64) * 1000 + ti as u64);
-            let d = delta::probe_delta(&xa.view(), &xb.view(), &input, &probe, &dopts, seed)
-                .map_err(|e| {
-                    CompareError::Internal(format!(
-                        "probe delta, layer {layer}, task {}: {e}",
-                        p.name
-                    ))
-                })?;
-            out.push(d);
-            step.inc(1);
-        }
     }
     Ok(out)
 }

@@ -11,22 +11,24 @@ pub mod bootstrap;
 pub mod control;
 pub mod fit;
 pub mod lbfgs;
+pub mod mdl;
 pub mod metrics;
 mod plan;
 pub mod ridge;
 pub mod softmax;
+mod task;
 
 use ndarray::{Array2, ArrayView2};
 use serde::Serialize;
 
-use crate::analysis::seed::mix;
 use crate::capture::{Capture, CaptureError, FrameTable};
 pub use crate::records::probe::{
-    BestConfusion, BestLayer, FoldSides, ProbeRecord, ProbeReport, ProbeSummary, TaskSetup,
+    BestConfusion, BestLayer, FoldSides, ProbeRecord, ProbeReport, ProbeSummary, TaskPredictions,
+    TaskSetup,
 };
 use crate::records::CaptureRef;
 use crate::select::pool::{self, Items, Pooling, UttIndex};
-use crate::select::split::{Fold, SplitKind};
+use crate::select::split::{FoldCount, SplitKind};
 use crate::{CommonOptions, Progress};
 
 pub use fit::{fit_predict, Fit, SearchPoint};
@@ -59,8 +61,9 @@ pub struct ProbeOptions {
     pub split: SplitKind,
     /// Share of groups held out for testing.
     pub test_fraction: f64,
-    /// Folds of grouped cross-validation (1: one split).
-    pub folds: usize,
+    /// Folds of grouped cross-validation: `auto` (K = 5 when one split would test on fewer
+    /// than 10 groups) or a number (1: one split).
+    pub folds: FoldCount,
     /// Largest number of training items per fit (stratified subsample; 0: all).
     pub max_train_frames: usize,
     /// Largest number of test items per fold (stratified subsample, class shares kept; 0: all).
@@ -78,6 +81,10 @@ pub struct ProbeOptions {
     pub bootstrap: usize,
     /// Train the control task.
     pub control: bool,
+    /// Label column whose values are the control task's types (None: phone in context).
+    pub control_by: Option<String>,
+    /// Compute the MDL online code (Voita & Titov 2020).
+    pub mdl: bool,
     /// Refuse (instead of dropping with a warning) classes or speakers a split cannot use.
     pub strict: bool,
 }
@@ -86,7 +93,7 @@ impl ProbeOptions {
     /// Refuse settings that cannot work (exit code 2), before any work: never clamp.
     pub fn check(&self) -> Result<(), ProbeError> {
         let bad = |m: String| Err(ProbeError::Input(m));
-        if self.folds == 0 {
+        if self.folds == FoldCount::Fixed(0) {
             return bad("--folds: expected 1 or more, found 0".into());
         }
         if !(self.test_fraction > 0.0 && self.test_fraction < 1.0) {
@@ -128,7 +135,7 @@ impl Default for ProbeOptions {
             context: 0,
             split: SplitKind::Auto,
             test_fraction: 0.25,
-            folds: 1,
+            folds: FoldCount::Auto,
             max_train_frames: 20_000,
             max_test_frames: 50_000,
             // α = 1e-1 .. 1e-4 per item, from a strong penalty to a nearly unpenalised fit
@@ -141,20 +148,11 @@ impl Default for ProbeOptions {
             max_iter: 100,
             bootstrap: 1000,
             control: true,
+            control_by: None,
+            mdl: false,
             strict: false,
         }
     }
-}
-
-fn mean(v: &[f64]) -> f64 {
-    v.iter().sum::<f64>() / v.len().max(1) as f64
-}
-
-fn sd(v: &[f64]) -> Option<f64> {
-    (v.len() > 1).then(|| {
-        let m = mean(v);
-        (v.iter().map(|x| (x - m) * (x - m)).sum::<f64>() / (v.len() - 1) as f64).sqrt()
-    })
 }
 
 /// Probe every selected layer of `cap` for every task. Validates all input before any heavy
@@ -173,6 +171,7 @@ pub fn run(
     let (needed, row_of) = needed_frames(cap, &plans, &idx, opts.context);
     let step = progress.step("probing layers", (layers.len() * plans.len()) as u64);
     let mut records = Vec::new();
+    let mut predictions = Vec::new();
     let mut confusions: Vec<Vec<Vec<Vec<u64>>>> = vec![Vec::new(); plans.len()];
     for &li in &layers {
         let layer_id = cap.layers[li].id;
@@ -189,9 +188,10 @@ pub fn run(
             context: opts.context,
         };
         for (ti, p) in plans.iter().enumerate() {
-            let scores = probe_task(&rows, p, ti, opts, common.seed)?;
+            let scores = task::probe_task(&rows, p, ti, opts, common.seed)?;
             records.push(scores.record(p, layer_id, ti, opts, common.seed));
-            confusions[ti].push(scores.conf);
+            predictions.push(scores.predictions(p, layer_id));
+            confusions[ti].push(scores.confusion(p.classes.len()));
             step.inc(1);
         }
     }
@@ -214,6 +214,7 @@ pub fn run(
             speaker_half_level,
         },
         notes,
+        predictions,
     })
 }
 
@@ -248,7 +249,7 @@ fn needed_frames(
 }
 
 /// One layer's activations as read, and what it takes to build item features from them.
-struct LayerRows<'a> {
+pub(super) struct LayerRows<'a> {
     x: ArrayView2<'a, f32>,
     row_of: Option<&'a [u32]>,
     idx: &'a UttIndex,
@@ -258,7 +259,7 @@ struct LayerRows<'a> {
 
 impl LayerRows<'_> {
     /// Features of the items `which` (pooled, with context frames stacked).
-    fn features(&self, items: &Items, which: &[usize]) -> Array2<f32> {
+    pub(super) fn features(&self, items: &Items, which: &[usize]) -> Array2<f32> {
         pool::features(
             &self.x,
             self.row_of,
@@ -271,217 +272,13 @@ impl LayerRows<'_> {
     }
 }
 
-/// One task's scores on one layer, gathered fold by fold.
-#[derive(Default)]
-struct TaskScores {
-    accs: Vec<f64>,
-    f1s: Vec<f64>,
-    bals: Vec<f64>,
-    majs: Vec<f64>,
-    ctrls: Vec<f64>,
-    cs: Vec<f64>,
-    /// Whether each test item (all folds) was predicted right, and its bootstrap cluster.
-    correct: Vec<bool>,
-    cluster: Vec<u32>,
-    /// Confusion counts summed over folds (true class × predicted class).
-    conf: Vec<Vec<u64>>,
-    n_train: usize,
-    n_test: usize,
-}
-
-/// Probe task `p` (number `ti`) on one layer, every fold.
-fn probe_task(
-    rows: &LayerRows,
-    p: &TaskPlan,
-    ti: usize,
-    opts: &ProbeOptions,
-    seed: u64,
-) -> Result<TaskScores, ProbeError> {
-    let k = p.classes.len();
-    let mut s = TaskScores {
-        conf: vec![vec![0u64; k]; k],
-        ..Default::default()
-    };
-    for (fi, f) in p.folds.iter().enumerate() {
-        probe_fold(rows, p, f, ti * 1000 + fi, opts, seed, &mut s)?;
-        s.n_train += f.train.len();
-        s.n_test += f.test.len();
-    }
-    Ok(s)
-}
-
-/// Train and score the probe (and the control) on one fold; `tf` numbers the task and fold
-/// for the seeds.
-fn probe_fold(
-    rows: &LayerRows,
-    p: &TaskPlan,
-    f: &Fold,
-    tf: usize,
-    opts: &ProbeOptions,
-    seed: u64,
-    s: &mut TaskScores,
-) -> Result<(), ProbeError> {
-    let k = p.classes.len();
-    let xtr = rows.features(&p.items, &f.train);
-    let xte = rows.features(&p.items, &f.test);
-    let ytr: Vec<u32> = f.train.iter().map(|&i| p.items.label[i]).collect();
-    let yte: Vec<u32> = f.test.iter().map(|&i| p.items.label[i]).collect();
-    let groups: Vec<u32> = f
-        .train
-        .iter()
-        .map(|&i| match p.kind {
-            SplitKind::Speaker => p.items.speaker[i],
-            SplitKind::Utterance => p.items.utt[i],
-            _ => i as u32,
-        })
-        .collect();
-    let fseed = mix(seed, 300 + tf as u64);
-    let fit = fit_predict(xtr.view(), &ytr, k, xte.view(), &groups, opts, fseed)?;
-    s.accs.push(metrics::accuracy(&yte, &fit.pred));
-    s.f1s.push(metrics::macro_f1(&yte, &fit.pred, k));
-    s.bals.push(metrics::balanced_accuracy(&yte, &fit.pred, k));
-    s.majs.push(metrics::majority_baseline(&ytr, &yte, k));
-    s.cs.push(fit.c);
-    for (r, row) in metrics::confusion(&yte, &fit.pred, k).iter().enumerate() {
-        for (c, v) in row.iter().enumerate() {
-            s.conf[r][c] += v;
-        }
-    }
-    for (j, &i) in f.test.iter().enumerate() {
-        s.correct.push(yte[j] == fit.pred[j]);
-        s.cluster.push(cluster_of(p, i));
-    }
-    if opts.control {
-        let sides = FoldData {
-            x_train: xtr.view(),
-            x_test: xte.view(),
-            y_train: &ytr,
-            groups: &groups,
-        };
-        let acc = control_accuracy(&sides, p, f, fit.alpha, tf, opts, seed, fseed)?;
-        s.ctrls.push(acc);
-    }
-    Ok(())
-}
-
-/// The bootstrap cluster of item `i`: its speaker, or its utterance for the speaker task.
-fn cluster_of(p: &TaskPlan, i: usize) -> u32 {
-    if p.speaker_task {
-        p.items.utt[i]
-    } else {
-        p.items.speaker[i]
-    }
-}
-
-/// A fold's features, training labels and inner-split groups.
-struct FoldData<'a> {
-    x_train: ArrayView2<'a, f32>,
-    x_test: ArrayView2<'a, f32>,
-    y_train: &'a [u32],
-    groups: &'a [u32],
-}
-
-/// Test accuracy of the control task on one fold: control labels drawn per segment with the
-/// training class frequencies, fitted with the main probe's penalty `alpha`.
-#[allow(clippy::too_many_arguments)]
-fn control_accuracy(
-    d: &FoldData,
-    p: &TaskPlan,
-    f: &Fold,
-    alpha: f64,
-    tf: usize,
-    opts: &ProbeOptions,
-    seed: u64,
-    fseed: u64,
-) -> Result<f64, ProbeError> {
-    let k = p.classes.len();
-    let mut freq = vec![0f64; k];
-    for &c in d.y_train {
-        freq[c as usize] += 1.0;
-    }
-    let ctl = control::control_labels(&p.items.segment, &freq, mix(seed, 400 + tf as u64));
-    let ctr: Vec<u32> = f.train.iter().map(|&i| ctl[i]).collect();
-    let cte: Vec<u32> = f.test.iter().map(|&i| ctl[i]).collect();
-    // The control uses the same probe, penalty included (Hewitt & Liang 2019 compare one
-    // probe configuration on both tasks), so no penalty search here.
-    let copts = ProbeOptions {
-        alphas: if alpha.is_finite() {
-            vec![alpha]
-        } else {
-            opts.alphas.clone()
-        },
-        ..opts.clone()
-    };
-    let cfit = fit_predict(
-        d.x_train,
-        &ctr,
-        k,
-        d.x_test,
-        d.groups,
-        &copts,
-        fseed ^ 0x5a5a,
-    )?;
-    Ok(metrics::accuracy(&cte, &cfit.pred))
-}
-
-impl TaskScores {
-    /// The record of task `p` (number `ti`) on layer `layer`: fold means, the bootstrap
-    /// interval over all test items, and the median C.
-    fn record(
-        &self,
-        p: &TaskPlan,
-        layer: usize,
-        ti: usize,
-        opts: &ProbeOptions,
-        seed: u64,
-    ) -> ProbeRecord {
-        let boot_seed = mix(seed, 500 + ti as u64);
-        let (lo, hi) = bootstrap::cluster_interval(
-            &self.correct,
-            &self.cluster,
-            opts.bootstrap,
-            0.95,
-            boot_seed,
-        );
-        let accuracy = mean(&self.accs);
-        let control_accuracy = if opts.control {
-            mean(&self.ctrls)
-        } else {
-            f64::NAN
-        };
-        let mut cs_sorted = self.cs.clone();
-        cs_sorted.sort_by(|a, b| a.total_cmp(b));
-        ProbeRecord {
-            layer,
-            task: p.name.clone(),
-            pooling: opts.pooling.name().to_string(),
-            split: p.kind.name().to_string(),
-            n_train: (self.n_train as f64 / p.folds.len() as f64).round() as usize,
-            n_test: self.n_test,
-            n_classes: p.classes.len(),
-            accuracy,
-            ci_low: lo,
-            ci_high: hi,
-            macro_f1: mean(&self.f1s),
-            balanced_accuracy: mean(&self.bals),
-            majority_baseline: mean(&self.majs),
-            control_accuracy,
-            selectivity: accuracy - control_accuracy,
-            c: cs_sorted[cs_sorted.len() / 2],
-            folds: p.folds.len(),
-            accuracy_sd: sd(&self.accs),
-            control_accuracy_sd: if opts.control { sd(&self.ctrls) } else { None },
-        }
-    }
-}
-
 /// Note tasks with fewer than two test clusters: their intervals degenerate to a point.
 fn note_point_intervals(plans: &[TaskPlan], notes: &mut Vec<String>) {
     for p in plans {
         let mut cl: Vec<u32> = p
             .folds
             .iter()
-            .flat_map(|f| f.test.iter().map(|&i| cluster_of(p, i)))
+            .flat_map(|f| f.test.iter().map(|&i| task::cluster_of(p, i)))
             .collect();
         cl.sort_unstable();
         cl.dedup();

@@ -12,7 +12,7 @@ use crate::select::pool::{self, Items, UttIndex};
 use crate::select::sample;
 use crate::select::split::{self, Fold, Split, SplitKind, SplitOptions};
 
-use super::{ProbeError, ProbeOptions};
+use super::{control, ProbeError, ProbeOptions};
 
 /// A task ready to run: items, classes and folds (training sides already subsampled).
 pub(super) struct TaskPlan {
@@ -22,6 +22,8 @@ pub(super) struct TaskPlan {
     pub(super) classes: Vec<String>,
     pub(super) kind: SplitKind,
     pub(super) folds: Vec<Fold>,
+    /// Control label of each item (None when the control is off).
+    pub(super) control: Option<Vec<u32>>,
     pub(super) setup: TaskSetup,
 }
 
@@ -38,6 +40,9 @@ pub(super) fn plan_tasks(
     notes: &mut Vec<String>,
 ) -> Result<Vec<TaskPlan>, ProbeError> {
     let names = task_names(cap, opts)?;
+    if let Some(col) = opts.control_by.as_deref().filter(|_| opts.control) {
+        check_control_column(cap, col)?;
+    }
     let idx = UttIndex::new(&cap.frames);
     if opts.context > 0 {
         let shortest = idx.shortest();
@@ -106,9 +111,17 @@ fn plan_task(
         notes,
     )?;
     let (items, classes) = keep_usable_classes(cap, task, name, items, &keep_class)?;
+    let n_folds = split::resolve_folds(
+        opts.folds,
+        kind,
+        speaker_task,
+        &items.utt,
+        &items.speaker,
+        opts.test_fraction,
+    );
     let sopts = SplitOptions {
         test_fraction: opts.test_fraction,
-        folds: opts.folds,
+        folds: n_folds,
     };
     let sp = split::make_split(
         kind,
@@ -133,6 +146,19 @@ fn plan_task(
             "task '{name}': split leaks: {check:?}"
         )));
     }
+    let ctl = if opts.control {
+        Some(control_plan(
+            cap,
+            idx,
+            opts,
+            name,
+            &items,
+            classes.len(),
+            mix(seed, 400 + ti as u64),
+        )?)
+    } else {
+        None
+    };
     let setup = TaskSetup {
         task: name.to_string(),
         classes: classes.clone(),
@@ -141,6 +167,8 @@ fn plan_task(
         groups: group_word(sp.kind).to_string(),
         folds: fold_sides(sp.kind, &folds, &items, t),
         leakage_check: check,
+        control_by: ctl.as_ref().map_or("none".into(), |c| c.by.clone()),
+        control_types: ctl.as_ref().map_or(0, |c| c.types),
     };
     Ok(TaskPlan {
         name: name.to_string(),
@@ -149,7 +177,101 @@ fn plan_task(
         classes,
         kind: sp.kind,
         folds,
+        control: ctl.map(|c| c.labels),
         setup,
+    })
+}
+
+/// `--control-by COLUMN` must name a label column with at least two values.
+fn check_control_column(cap: &Capture, col: &str) -> Result<(), ProbeError> {
+    let t = &cap.frames;
+    let Some(column) = t.task(col) else {
+        return Err(input(format!(
+            "{}: --control-by {col}: not a label column; the capture has: {}",
+            cap.dir.display(),
+            t.task_names().join(", ")
+        )));
+    };
+    let mut values: Vec<u32> = column
+        .codes
+        .iter()
+        .copied()
+        .filter(|&c| c != UNLABELLED)
+        .collect();
+    values.sort_unstable();
+    values.dedup();
+    if values.len() < 2 {
+        return Err(input(format!(
+            "{}: --control-by {col}: expected a column with at least 2 values to serve as control types, found {} ({})",
+            cap.dir.display(),
+            values.len(),
+            values
+                .first()
+                .map_or("none", |&v| column.classes[v as usize].as_str())
+        )));
+    }
+    Ok(())
+}
+
+/// A task's control labels: one random label per type, drawn from the task's class
+/// frequencies, with what the types are and how many occur.
+struct ControlPlan {
+    labels: Vec<u32>,
+    by: String,
+    types: usize,
+}
+
+/// The control task of task `name`: types from `--control-by` (the column's values) or, by
+/// default, the phone in context (the task's own label in context when there is no phone
+/// column); each item takes the type of its middle frame.
+fn control_plan(
+    cap: &Capture,
+    idx: &UttIndex,
+    opts: &ProbeOptions,
+    name: &str,
+    items: &Items,
+    k: usize,
+    seed: u64,
+) -> Result<ControlPlan, ProbeError> {
+    let t = &cap.frames;
+    let (col, in_context) = match opts.control_by.as_deref() {
+        Some(c) => (c, false),
+        None if t.task("phone").is_some() => ("phone", true),
+        None => (name, true),
+    };
+    let column = t
+        .task(col)
+        .ok_or_else(|| input(format!("--control-by {col}: not a label column")))?;
+    let by = if in_context {
+        format!("{col} in context")
+    } else {
+        col.to_string()
+    };
+    let (frame_type, _) = control::frame_types(column, idx, in_context);
+    // Renumber the types the items use, in order of first use.
+    let mut code = std::collections::HashMap::new();
+    let item_type: Vec<u32> = (0..items.len())
+        .map(|i| {
+            let m = items.members(i);
+            let ty = frame_type[m[m.len() / 2]];
+            let next = code.len() as u32;
+            *code.entry(ty).or_insert(next)
+        })
+        .collect();
+    if code.len() < 2 {
+        return Err(input(format!(
+            "{}: task '{name}': the control types ({by}) take a single value over its items; name another column with --control-by, or use --no-control",
+            cap.dir.display()
+        )));
+    }
+    let mut freq = vec![0f64; k];
+    for &c in &items.label {
+        freq[c as usize] += 1.0;
+    }
+    Ok(ControlPlan {
+        labels: control::control_labels(&item_type, &freq, seed),
+        by,
+        types: code.len(),
     })
 }
 

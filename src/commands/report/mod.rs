@@ -162,6 +162,8 @@ impl Clock {
 /// figures to embed and the files written.
 struct CaptureResult {
     section: CaptureSection,
+    /// The probe stage's report, whose test predictions the probe deltas pair.
+    probe: crate::records::probe::ProbeReport,
     options: Vec<(String, serde_json::Value)>,
     figures: Vec<SvgFigure>,
     written: Vec<PathBuf>,
@@ -204,7 +206,9 @@ pub fn run(
             c, dir, &prefix, &opts, common, progress, &mut clock,
         )?);
     }
-    let compare = compare_step(&caps, &opts, common, progress, &mut clock)?;
+    let probes: Vec<&crate::records::probe::ProbeReport> =
+        results.iter().map(|r| &r.probe).collect();
+    let compare = compare_step(&caps, &probes, &opts, common, progress, &mut clock)?;
 
     let t = Instant::now();
     let (inputs, mut outputs) = gather(&caps, results, compare, &opts, common, &hashes, &clock)?;
@@ -230,19 +234,23 @@ struct CompareResult {
     written: Written,
 }
 
-/// With two captures, compare them and write `compare.json` and its figures.
+/// With two captures, compare them and write `compare.json` and its figures; the probe
+/// deltas pair the probe stage's predictions (`probes`, one per capture), so the page shows one
+/// accuracy per (layer, task).
 fn compare_step(
     caps: &[Capture],
+    probes: &[&crate::records::probe::ProbeReport],
     opts: &ReportOptions,
     common: &CommonOptions,
     progress: &Progress,
     clock: &mut Clock,
 ) -> crate::Result<Option<CompareResult>> {
-    let [a, b] = caps else {
+    let ([a, b], [pa, pb]) = (caps, probes) else {
         return Ok(None);
     };
     let t = Instant::now();
-    let rep = crate::analysis::compare::run(a, b, &opts.compare, common, progress)?;
+    let rep =
+        crate::analysis::compare::run(a, b, &opts.compare, common, progress, Some([*pa, *pb]))?;
     let written = super::compare::write(&rep, &opts.out)?;
     clock.done("compare", t);
     Ok(Some(CompareResult {
@@ -442,7 +450,7 @@ fn analyse_capture(
     Ok(CaptureResult {
         section: CaptureSection {
             summary,
-            probe: probe.records,
+            probe: probe.records.clone(),
             purity: map.records.clone(),
             maps: Some(map_set(c, &map)?),
             abx,
@@ -451,6 +459,7 @@ fn analyse_capture(
         options,
         figures,
         written,
+        probe,
     })
 }
 

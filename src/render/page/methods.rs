@@ -105,9 +105,12 @@ fn probe_methods(p: &mut String, inp: &ReportInputs, sec: &CaptureSection) {
             .collect();
         let _ = write!(
             p,
-            "On “{name}”, a linear probe (multinomial logistic regression) was trained on every layer for {}; each accuracy is shown with its 95% interval beside the majority-class baseline and a control task (Hewitt & Liang 2019): every labelled segment (every utterance for the speaker task) was given a random label drawn from the training class frequencies, and the same probe with the same penalty was trained on it; selectivity is accuracy minus control accuracy. ",
+            "On “{name}”, a linear probe (multinomial logistic regression) was trained on every layer for {}; each accuracy is shown with its 95% interval beside the majority-class baseline. ",
             parts.join(", ")
         );
+        control_sentence(p, &sec.probe);
+        folds_sentence(p, &sec.probe);
+        mdl_sentence(p, &sec.probe);
         let opt = inp
             .methods
             .options
@@ -134,6 +137,50 @@ fn probe_methods(p: &mut String, inp: &ReportInputs, sec: &CaptureSection) {
                 );
             }
         }
+    }
+}
+
+/// The control task as run: its types and what selectivity means.
+fn control_sentence(p: &mut String, recs: &[ProbeRecord]) {
+    let by = distinct(
+        recs.iter()
+            .filter(|r| r.control_by != "none")
+            .map(|r| r.control_by.clone()),
+    );
+    if by.is_empty() {
+        let _ = write!(p, "No control task was run. ");
+        return;
+    }
+    let types = if by.iter().all(|b| b.ends_with(" in context")) {
+        let col = by[0].trim_end_matches(" in context");
+        format!("a {col} in context (the {col} label of the frame's run with the labels of the runs before and after it in the same utterance, # at its edges)")
+    } else {
+        format!("a value of the column {}", by.join("/"))
+    };
+    let _ = write!(
+        p,
+        "The control task (Hewitt & Liang 2019) gives each type, here {types}, one random label drawn from the task's class frequencies with the run's seed; types recur across speakers and utterances, so a probe with enough capacity can learn that mapping. The same probe, with the same penalty and split, was trained on it; selectivity is accuracy minus control accuracy. "
+    );
+}
+
+/// How the test side was formed: one split or grouped folds.
+fn folds_sentence(p: &mut String, recs: &[ProbeRecord]) {
+    let k = recs.iter().map(|r| r.folds).max().unwrap_or(1);
+    if k > 1 {
+        let _ = write!(
+            p,
+            "Where one split would test on fewer than 10 speakers (utterances for the speaker task), the groups were dealt over {k} folds, every group tested exactly once; accuracy and its interval are pooled over all test items of all folds, and the spread of the per-fold accuracies is reported as accuracy_sd. "
+        );
+    }
+}
+
+/// The MDL online code, when computed.
+fn mdl_sentence(p: &mut String, recs: &[ProbeRecord]) {
+    if recs.iter().any(|r| r.mdl_status == "computed") {
+        let _ = write!(
+            p,
+            "The description length of the labels (MDL, online code; Voita & Titov 2020) was computed on the first fold's training items in a seeded order, cut into blocks at 0.1, 0.2, 0.4, 0.8, 1.6, 3.2, 6.25, 12.5, 25, 50 and 100%: the first block sent with the uniform code, every later one with the probe trained on the blocks before it (its probabilities mixed with 0.1% of the uniform code so an unseen class stays finite); compression is the uniform code length over the online one. "
+        );
     }
 }
 

@@ -121,6 +121,13 @@ pub(super) fn probe_rows(recs: &[ProbeRecord]) -> Vec<Vec<String>> {
                 f3(r.control_accuracy),
                 f3(r.selectivity),
                 f3(r.c),
+                r.folds.to_string(),
+                f3(r.accuracy_sd),
+                if r.mdl_status == "computed" {
+                    f3(r.mdl_compression)
+                } else {
+                    "—".into()
+                },
             ]
         })
         .collect()
@@ -146,7 +153,7 @@ pub(super) fn purity_rows(recs: &[PurityRecord]) -> Vec<Vec<String>> {
         .collect()
 }
 
-pub(super) const PROBE_HEAD: [&str; 15] = [
+pub(super) const PROBE_HEAD: [&str; 18] = [
     "layer",
     "task",
     "pooling",
@@ -162,6 +169,9 @@ pub(super) const PROBE_HEAD: [&str; 15] = [
     "control",
     "selectivity",
     "C",
+    "folds",
+    "fold sd",
+    "MDL compression",
 ];
 pub(super) const PURITY_HEAD: [&str; 11] = [
     "layer",
