@@ -543,11 +543,35 @@ pub fn unit(plan_path: &Path, index: usize, progress: &Progress) -> crate::Resul
     }
 }
 
+/// Run unit `index`, opening only the captures it reads (so a capture that cannot be read fails
+/// its own units, not the other capture's).
 fn run_unit(plan: &Plan, index: usize, progress: &Progress) -> crate::Result<Part> {
     let common = plan.common();
-    let opts = report::resolve(&plan.options())?;
+    let mut opts = report::resolve(&plan.options())?;
+    let unit = match plan.units[index].clone() {
+        Unit::Probe { capture, layer } => {
+            opts.captures = vec![own(&opts.captures, capture)?];
+            Unit::Probe { capture: 0, layer }
+        }
+        Unit::Abx { capture, layer } => {
+            opts.captures = vec![own(&opts.captures, capture)?];
+            Unit::Abx { capture: 0, layer }
+        }
+        Unit::Map { capture } => {
+            opts.captures = vec![own(&opts.captures, capture)?];
+            Unit::Map { capture: 0 }
+        }
+        Unit::Compare => Unit::Compare,
+    };
     let caps = report::open_all(&opts, &common)?;
-    units::run(&plan.units[index], &caps, &opts, &common, progress)
+    units::run(&unit, &caps, &opts, &common, progress)
+}
+
+fn own(captures: &[PathBuf], i: usize) -> Result<PathBuf, BatchError> {
+    captures
+        .get(i)
+        .cloned()
+        .ok_or_else(|| BatchError::Internal(format!("the plan names capture {i}")))
 }
 
 /// `voxstrata assemble DIR`: check the plan and every part, then write the report from them.
