@@ -349,6 +349,11 @@ pub fn run(args: &BatchArgs, common: &CommonOptions) -> crate::Result<()> {
     };
     write::prepare_out_dir(&opts.out, args.force)?;
     let dir = workdir.join(batch_dir(&opts.out));
+    // Parts of an earlier plan in this folder must not be taken for this plan's.
+    let old_parts = dir.join("parts");
+    if old_parts.exists() {
+        std::fs::remove_dir_all(&old_parts).map_err(|e| io_err(&old_parts, e))?;
+    }
     for sub in ["parts", "logs"] {
         let p = dir.join(sub);
         std::fs::create_dir_all(&p).map_err(|e| io_err(&p, e))?;
