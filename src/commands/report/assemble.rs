@@ -373,7 +373,9 @@ fn abx_outputs(
     for p in found {
         match p {
             Part::Abx(l) => layers.push(l),
-            Part::AbxNotComputed(note) => return Ok((vec![], Written::default(), vec![note])),
+            Part::AbxNotComputed { reason } => {
+                return Ok((vec![], Written::default(), vec![reason]))
+            }
             _ => return Err(missing("ABX")),
         }
     }

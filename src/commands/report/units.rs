@@ -95,7 +95,10 @@ pub enum Part {
     /// One layer's ABX results.
     Abx(AbxLayer),
     /// ABX could not be computed on this capture (no triplet, unknown label): the reason.
-    AbxNotComputed(String),
+    AbxNotComputed {
+        /// Why.
+        reason: String,
+    },
     /// A capture's maps.
     Map(MapPart),
     /// The comparison.
@@ -143,7 +146,9 @@ pub fn run(
             match layerwise::abx_layer(c, a, common.seed, li) {
                 Ok(r) => Ok(Part::Abx(r)),
                 Err(e @ (AbxError::NoTriplet { .. } | AbxError::UnknownLabel { .. })) => {
-                    Ok(Part::AbxNotComputed(format!("not computed: {e}")))
+                    Ok(Part::AbxNotComputed {
+                        reason: format!("not computed: {e}"),
+                    })
                 }
                 Err(e) => Err(e.into()),
             }
@@ -276,6 +281,23 @@ impl From<ComparePart> for CompareReport {
             options: p.options,
             kernel: p.kernel,
             estimator: p.estimator,
+        }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn a_part_without_abx_survives_its_json() {
+        // Internally tagged enums refuse newtype strings at run time, not at compile time.
+        let p = Part::AbxNotComputed {
+            reason: "not computed: no triplet".into(),
+        };
+        match Part::decode(&p.encode().unwrap()).unwrap() {
+            Part::AbxNotComputed { reason } => assert_eq!(reason, "not computed: no triplet"),
+            other => panic!("{other:?}"),
         }
     }
 }
