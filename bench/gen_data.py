@@ -40,6 +40,12 @@ SIZES = {
     # per-utterance read: 10 000 utterances of 20..80 frames (seeded), 128 dims f32, written
     # three ways: one file per layer, per-layer folders, per-utterance stacks of 2 layers.
     "utts": ({"utterances": 10_000, "dim": 128}, {"utterances": 2_000, "dim": 128}),
+    # report on a full-size capture: 13 layers x 200 000 frames x 768 dims float16 (4.0 GB), 100
+    # speakers, 40 phones, phone and speaker factors mixed through a random nonlinearity.
+    "capture": (
+        {"frames": 200_000, "dim": 768, "layers": 13, "speakers": 100, "phones": 40, "latent": 64, "noise": 2.0},
+        {"frames": 20_000, "dim": 768, "layers": 13, "speakers": 20, "phones": 40, "latent": 64, "noise": 2.0},
+    ),
 }
 
 
@@ -239,11 +245,55 @@ def make_utts(quick):
         for layer, a in enumerate(layers):
             np.save(os.path.join(folders, f"layer_{layer:02d}", f"{name}.npy"), a[lo:hi])
         np.save(os.path.join(stacks, "acts", f"{name}.npy"), np.stack([a[lo:hi] for a in layers]))
+def make_capture(quick):
+    """One capture structured like a speech model's activations: frames.tsv with utterances of
+    200 frames (each from one of `speakers` talkers, drawn at random) and runs of 3..12 frames of
+    one of `phones` phones; layer l is tanh(z_l A_l + b_l) in float16, where
+    z_l = w_p(l) P[phone] + w_s(l) S[speaker] + U[utterance] + noise (latent dims), with the phone
+    weight rising and the speaker weight falling with depth, and A_l drifting from layer to layer
+    (neighbouring layers alike). Written block by block, so memory stays near one block."""
+    d, p, ok = _fresh("capture", quick)
+    if ok:
+        return d
+    rng = np.random.default_rng(SEED + 5)
+    n, dim, L, k = p["frames"], p["dim"], p["layers"], p["latent"]
+    utt_len = 200
+    n_utt = (n + utt_len - 1) // utt_len
+    utt = np.arange(n) // utt_len
+    utt_spk = rng.integers(0, p["speakers"], n_utt)
+    spk = utt_spk[utt]
+    ph = np.empty(n, dtype=np.int64)
+    i = 0
+    while i < n:
+        run = int(rng.integers(3, 13))
+        ph[i : i + run] = rng.integers(0, p["phones"])
+        i += run
+    with open(os.path.join(d, "frames.tsv"), "w") as f:
+        f.write("utterance\tspeaker\tphone\n")
+        f.writelines(f"u{u:05d}\ts{s:03d}\tp{q:02d}\n" for u, s, q in zip(utt, spk, ph))
+    P = rng.standard_normal((p["phones"], k)).astype(np.float32)
+    S = rng.standard_normal((p["speakers"], k)).astype(np.float32)
+    U = rng.standard_normal((n_utt, k)).astype(np.float32) * 0.3
+    A = rng.standard_normal((k, dim)).astype(np.float32) / np.sqrt(k)
+    block = 20_000
+    for layer in range(L):
+        t = layer / max(L - 1, 1)
+        wp, ws = 0.2 + 0.8 * t, 1.0 - 0.8 * t
+        A = (A + rng.standard_normal((k, dim)).astype(np.float32) * (0.35 / np.sqrt(k))) / np.sqrt(1 + 0.35**2)
+        b = rng.standard_normal(dim).astype(np.float32) * 0.3
+        out = np.lib.format.open_memmap(os.path.join(d, f"layer_{layer:02d}.npy"), "w+", np.float16, (n, dim))
+        for lo in range(0, n, block):
+            hi = min(lo + block, n)
+            z = wp * P[ph[lo:hi]] + ws * S[spk[lo:hi]] + U[utt[lo:hi]]
+            z += rng.standard_normal((hi - lo, k)).astype(np.float32) * p["noise"]
+            out[lo:hi] = np.tanh(z @ A + b).astype(np.float16)
+        out.flush()
+        del out
     _done(d, p)
     return d
 
 
-MAKERS = {"read": make_read, "big": make_big, "probe": make_probe, "tsne": make_tsne, "cka": make_cka, "utts": make_utts}
+MAKERS = {"capture": make_capture, "read": make_read, "big": make_big, "probe": make_probe, "tsne": make_tsne, "cka": make_cka, "utts": make_utts}
 
 
 def ensure(name, quick):

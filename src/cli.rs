@@ -191,6 +191,21 @@ enum Command {
     Abx(AbxCmd),
     /// Run everything and write one HTML report.
     Report(ReportCmd),
+    /// Plan the work of `report` as units for a Slurm job array, with the assembly after it.
+    Batch(BatchCmd),
+    /// Run one unit of a batch plan (one array task).
+    Unit {
+        /// The plan (DIR/batch/plan.json).
+        plan: PathBuf,
+        /// The unit's index ($SLURM_ARRAY_TASK_ID).
+        #[arg(long)]
+        index: usize,
+    },
+    /// Merge the parts of a batch run into the files `report` writes.
+    Assemble {
+        /// The report folder given to `batch --out`.
+        dir: PathBuf,
+    },
     /// Build the demo scenario and write its two captures.
     Demo {
         /// Output folder.
@@ -269,6 +284,62 @@ struct ReportCmd {
     mdl: bool,
     #[command(flatten)]
     cap: CaptureArgs,
+}
+
+#[derive(Args, Debug)]
+struct BatchCmd {
+    #[command(flatten)]
+    report: ReportCmd,
+    /// Slurm partition of every job.
+    #[arg(long)]
+    partition: Option<String>,
+    /// Time limit of each job, HH:MM:SS.
+    #[arg(long)]
+    time: Option<String>,
+    /// Memory of each job, e.g. 8G.
+    #[arg(long)]
+    mem: Option<String>,
+    /// CPUs of each job (also the unit's worker threads).
+    #[arg(long)]
+    cpus: Option<usize>,
+    /// Submit both scripts with sbatch (otherwise print the commands).
+    #[arg(long)]
+    submit: bool,
+}
+
+impl BatchCmd {
+    fn args(self) -> Result<commands::batch::BatchArgs, Error> {
+        let r = self.report;
+        let merge = match &r.cap.merge_labels {
+            Some(p) => voxstrata::capture::labels::read_merge_map(p)?,
+            None => Default::default(),
+        };
+        let mut merge_labels: Vec<(String, String)> = merge.into_iter().collect();
+        merge_labels.sort();
+        Ok(commands::batch::BatchArgs {
+            captures: r.captures,
+            out: r.out,
+            force: r.force,
+            settings: commands::batch::Settings {
+                drop_label: r.cap.drop_label,
+                merge_labels,
+                allow_nonfinite: r.cap.allow_nonfinite,
+                map_method: match r.map_method {
+                    MapMethod::Tsne => "tsne".into(),
+                    MapMethod::Pca => "pca".into(),
+                },
+                abx: !r.no_abx,
+                mdl: r.mdl,
+            },
+            slurm: commands::batch::Slurm {
+                partition: self.partition,
+                time: self.time,
+                mem: self.mem,
+                cpus: self.cpus,
+            },
+            submit: self.submit,
+        })
+    }
 }
 
 /// Size of the demo scenario.
@@ -457,6 +528,9 @@ fn dispatch(cli: Cli) -> Result<(), Error> {
         }
         Command::Abx(a) => commands::abx::run(&a.args()?, c, p),
         Command::Report(r) => report(&r.options()?, c, p, cli.quiet),
+        Command::Batch(b) => commands::batch::run(&b.args()?, c),
+        Command::Unit { plan, index } => commands::batch::unit(&plan, index, p),
+        Command::Assemble { dir } => commands::batch::assemble(&dir, p),
         Command::Demo { out, force, size } => {
             let size = match size {
                 DemoSizeArg::Default => voxstrata::demo::DemoSize::Default,

@@ -6,6 +6,7 @@ use crate::analysis::compare::CompareError;
 use crate::analysis::map::MapError;
 use crate::analysis::probe::ProbeError;
 use crate::capture::CaptureError;
+use crate::commands::batch::BatchError;
 use crate::commands::report::ReportError;
 use crate::render::PlotError;
 use crate::write::OutputError;
@@ -28,6 +29,9 @@ pub enum Error {
     /// Drawing failed.
     #[error(transparent)]
     Plot(#[from] PlotError),
+    /// Planning, running or assembling a split run failed.
+    #[error(transparent)]
+    Batch(#[from] BatchError),
     /// The report stage failed.
     #[error(transparent)]
     Report(#[from] ReportError),
@@ -55,6 +59,8 @@ impl Error {
             Error::Capture(_) | Error::Input(_) => 2,
             Error::Output(OutputError::Refused { .. }) => 2,
             Error::Report(e) if e.is_input() => 2,
+            Error::Batch(e) if e.is_input() => 2,
+            Error::Batch(_) => 1,
             Error::Abx(e) if e.is_input() => 2,
             Error::Abx(_) => 1,
             Error::Report(_) => 1,

@@ -4,6 +4,7 @@
 pub mod abx;
 pub mod compare;
 pub mod inspect;
+pub mod layerwise;
 pub mod linalg;
 pub mod map;
 pub mod probe;

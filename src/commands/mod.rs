@@ -3,6 +3,7 @@
 //! writers on the results it holds in memory.
 
 pub mod abx;
+pub mod batch;
 pub mod compare;
 pub mod demo;
 pub mod inspect;

@@ -358,12 +358,42 @@ fn structure_notes(items: &AbxItems, max_items: usize, seed: u64) -> Result<Vec<
 /// ABX error rates of the layers at indices `layers` (indices into `cap.layers`, as
 /// [`Capture::select_layers`] returns them). Reads one layer at a time, only the frames the
 /// kept items use.
+///
+/// The same as [`prepare`], [`score_layer`] for each layer and [`add_layer_notes`], which is
+/// how a run split into one unit per layer computes it.
 pub fn run(
     cap: &Capture,
     opts: &AbxOptions,
     seed: u64,
     layers: &[usize],
 ) -> Result<AbxResult, AbxError> {
+    let (items, mut notes) = prepare(cap, opts, seed, layers)?;
+    let mut records = Vec::new();
+    for &li in layers {
+        let (r, note) = score_layer(cap, &items, li)?;
+        records.extend(r);
+        notes.extend(note);
+    }
+    let mut result = AbxResult {
+        records,
+        notes,
+        n_items: items.n_found,
+        n_items_used: items.items.len(),
+        n_item_pairs: items.n_item_pairs(),
+        n_speakers: items.n_speakers(),
+    };
+    add_layer_notes(&mut result);
+    Ok(result)
+}
+
+/// Check the options and layer indices, find and sample the items (the same for every
+/// layer), and the notes on their structure.
+pub fn prepare(
+    cap: &Capture,
+    opts: &AbxOptions,
+    seed: u64,
+    layers: &[usize],
+) -> Result<(AbxItems, Vec<String>), AbxError> {
     opts.check()?;
     if let Some(&index) = layers.iter().find(|&&i| i >= cap.layers.len()) {
         return Err(AbxError::LayerIndex {
@@ -372,40 +402,44 @@ pub fn run(
         });
     }
     let items = AbxItems::new(&cap.frames, &opts.label, opts.max_items, seed)?;
-    let mut notes = structure_notes(&items, opts.max_items, seed)?;
-    let mut records = Vec::new();
-    for &li in layers {
-        let id = cap.layers[li].id;
-        let x = cap.read_layer_rows(li, items.rows())?;
-        let out = layer_records(&items, x.view(), id)?;
-        if out.zero_frames > 0 {
-            notes.push(format!(
-                "layer {id}: {} frames are zero vectors; their distance to every frame is taken as 1/2",
-                out.zero_frames
-            ));
-        }
-        records.extend(out.records);
-    }
+    let notes = structure_notes(&items, opts.max_items, seed)?;
+    Ok((items, notes))
+}
+
+/// The records of the layer at index `li`, and a note when some of its frames are zero
+/// vectors.
+pub fn score_layer(
+    cap: &Capture,
+    items: &AbxItems,
+    li: usize,
+) -> Result<(Vec<AbxRecord>, Option<String>), AbxError> {
+    let id = cap.layers[li].id;
+    let x = cap.read_layer_rows(li, items.rows())?;
+    let out = layer_records(items, x.view(), id)?;
+    let note = (out.zero_frames > 0).then(|| {
+        format!(
+            "layer {id}: {} frames are zero vectors; their distance to every frame is taken as 1/2",
+            out.zero_frames
+        )
+    });
+    Ok((out.records, note))
+}
+
+/// The notes that read every layer's records at once (conditions resting on few triplets).
+pub fn add_layer_notes(result: &mut AbxResult) {
     for cond in ["within", "across"] {
-        let fewest = records
+        let fewest = result
+            .records
             .iter()
             .filter(|r| r.condition == cond)
             .map(|r| r.n_triplets)
             .min();
         if let Some(n) = fewest.filter(|&n| n < FEW_TRIPLETS) {
-            notes.push(format!(
+            result.notes.push(format!(
                 "{cond}-speaker error rests on as few as {n} triplets per layer: a few triplets more or less move it by a lot (items in the same context from one talker are rare here)"
             ));
         }
     }
-    Ok(AbxResult {
-        records,
-        notes,
-        n_items: items.n_found,
-        n_items_used: items.items.len(),
-        n_item_pairs: items.n_item_pairs(),
-        n_speakers: items.n_speakers(),
-    })
 }
 
 #[cfg(test)]
