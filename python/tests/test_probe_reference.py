@@ -33,11 +33,11 @@ def test_probe_matches_scikit_learn(name):
     test = np.load(os.path.join(FIX, f"{name}_test.npy"))
     c = exp["C"]
     # Two groups, the fixture's training and test items; a speaker-disjoint split with
-    # test_fraction 0.5 holds out one of them. A single penalty α = 1/(C·n) is C itself.
+    # test_fraction 0.5 holds out one of them (one split: --folds 1). A single penalty α = 1/(C·n) is C itself.
     groups = np.where(np.isin(np.arange(len(y)), test), "test", "train")
     alpha = 1.0 / (c * len(train))
     for seed in range(20):
-        recs = voxstrata.probe(x, {"class": y}, groups, split="speaker", test_fraction=0.5, seed=seed,
+        recs = voxstrata.probe(x, {"class": y}, groups, split="speaker", folds=1, test_fraction=0.5, seed=seed,
                                alphas=[alpha], no_control=True, max_train_frames=0, max_test_frames=0,
                                bootstrap=10)
         if recs[0]["n_test"] == len(test):
