@@ -613,3 +613,61 @@ fn demo_final_capture_shows_the_expected_layer_story() {
         "phone selectivity not positive everywhere: {phone:?}"
     );
 }
+
+#[test]
+fn a_frame_split_says_it_overstates_accuracy() {
+    let tmp = tempfile::tempdir().unwrap();
+    let cap = tmp.path().join("cap");
+    synth(&cap, 6, None);
+    let run = |out: &Path, split: Option<&str>| {
+        let mut args = vec![
+            "probe",
+            cap.to_str().unwrap(),
+            "--out",
+            out.to_str().unwrap(),
+            "--quiet",
+            "--task",
+            "phone",
+            "--bootstrap",
+            "50",
+            "--layers",
+            "2",
+        ];
+        if let Some(s) = split {
+            args.extend(["--split", s]);
+        }
+        let r = probe(&args);
+        assert_eq!(r.code, 0, "{}", r.stderr);
+        (read_json(&out.join("probe.json")), r)
+    };
+    let is_frame_note =
+        |n: &str| n.contains("task 'phone' is split by frame") && n.contains("overstated");
+    let (j, r) = run(&tmp.path().join("frame"), Some("frame"));
+    assert_eq!(j["records"][0]["split"], "frame");
+    let notes: Vec<&str> = j["notes"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|n| n.as_str().unwrap())
+        .collect();
+    assert!(notes.iter().any(|n| is_frame_note(n)), "{notes:?}");
+    assert!(
+        r.stderr.lines().any(is_frame_note),
+        "note not printed: {}",
+        r.stderr
+    );
+    assert!(
+        r.stdout.contains("split by frame") && r.stdout.contains("overstated"),
+        "summary lacks the caution: {}",
+        r.stdout
+    );
+    // the default (speaker-disjoint) split on the same capture says nothing of the kind
+    let (j, r) = run(&tmp.path().join("auto"), None);
+    assert_eq!(j["records"][0]["split"], "speaker");
+    assert!(
+        !j["notes"].to_string().contains("split by frame"),
+        "{}",
+        j["notes"]
+    );
+    assert!(!r.stderr.contains("split by frame") && !r.stdout.contains("split by frame"));
+}

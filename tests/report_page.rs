@@ -8,7 +8,7 @@ mod common;
 use std::path::{Path, PathBuf};
 use std::sync::{Arc, Mutex};
 
-use common::{read_json, run, s, Frames};
+use common::{read_json, run, run_env, s, Frames};
 use ndarray::Array2;
 use rand::{Rng, SeedableRng};
 
@@ -153,17 +153,40 @@ fn report_on_two_captures_compares_them() {
     write_capture(&a, 1);
     write_capture(&b, 2);
     let out = t.path().join("out");
-    let o = run([
-        "report",
-        "--quiet",
-        "--map-method",
-        "pca",
-        s(&a),
-        s(&b),
-        "--out",
-        s(&out),
-    ]);
-    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    // progress on (stderr is a pipe: plain lines), printed for every step however short
+    let o = run_env(
+        [
+            "report",
+            "--map-method",
+            "pca",
+            s(&a),
+            s(&b),
+            "--out",
+            s(&out),
+        ],
+        &[("VOXSTRATA_PROGRESS_AFTER_S", "0")],
+    );
+    let err = String::from_utf8_lossy(&o.stderr);
+    assert!(o.status.success(), "{err}");
+    // with two captures every line of a unit's progress names its capture
+    for (prefix, step) in [
+        ("early", "probing layers"),
+        ("final", "probing layers"),
+        ("early", "map"),
+        ("final", "map"),
+        ("early against final", ""),
+    ] {
+        let want = format!("voxstrata: {prefix}: {step}");
+        assert!(
+            err.lines().any(|l| l.starts_with(&want)),
+            "no '{want}' in {err}"
+        );
+    }
+    assert!(
+        !err.lines()
+            .any(|l| l.starts_with("voxstrata: probing layers")),
+        "a probe line without its capture: {err}"
+    );
     for f in [
         "compare.json",
         "compare_cka.svg",

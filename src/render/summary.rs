@@ -40,6 +40,12 @@ pub fn probe(r: &ProbeReport) -> String {
             "  {:<10} best layer {:>2}: accuracy {:.3} (95% CI {:.3}-{:.3}{extra})\n",
             b.task, b.layer, b.accuracy, b.ci_low, b.ci_high
         ));
+        if rec.is_some_and(|x| x.split == "frame") {
+            s.push_str(&format!(
+                "  {:<10} split by frame: neighbouring frames sit on both sides, so this accuracy is overstated (see notes)\n",
+                b.task
+            ));
+        }
     }
     match (
         r.summary.speaker_below_half_layer,

@@ -133,6 +133,7 @@ fn plan_task(
     )
     .map_err(|m| input(format!("{}: task '{name}': {m}", cap.dir.display())))?;
     let folds = capped_folds(&sp, &items, opts, ti, seed);
+    note_frame_split(sp.kind, name, notes);
     note_test_cap(&sp, &folds, name, opts, notes);
     let check = split::check_leakage(
         sp.kind,
@@ -449,6 +450,18 @@ fn capped_folds(sp: &Split, items: &Items, opts: &ProbeOptions, ti: usize, seed:
             ),
         })
         .collect()
+}
+
+/// Warn that a split by frame overstates accuracy: neighbouring frames of one utterance, which
+/// are nearly alike, and the same speakers sit on both sides.
+fn note_frame_split(kind: SplitKind, name: &str, notes: &mut Vec<String>) {
+    if kind == SplitKind::Frame {
+        notes.push(format!(
+            "task '{name}' is split by frame: neighbouring frames of one utterance land on both \
+             sides, so its accuracy is overstated; use --split auto (speaker-disjoint, \
+             utterance-disjoint for the speaker task) for a score that holds on unseen speech"
+        ));
+    }
 }
 
 /// Note when the test cap left test items out.

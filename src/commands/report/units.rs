@@ -117,7 +117,8 @@ impl Part {
     }
 }
 
-/// Run one unit on the opened captures.
+/// Run one unit on the opened captures. With two captures, its progress lines start with the
+/// capture's name (the comparison's with both).
 pub fn run(
     unit: &Unit,
     caps: &[Capture],
@@ -125,6 +126,21 @@ pub fn run(
     common: &CommonOptions,
     progress: &Progress,
 ) -> crate::Result<Part> {
+    let named;
+    let progress = match (caps, unit) {
+        ([a, b], Unit::Compare) => {
+            named = progress.with_prefix(&format!("{} against {}", a.name, b.name));
+            &named
+        }
+        (
+            [_, _],
+            Unit::Probe { capture, .. } | Unit::Abx { capture, .. } | Unit::Map { capture },
+        ) => {
+            named = progress.with_prefix(caps.get(*capture).map_or("?", |c| c.name.as_str()));
+            &named
+        }
+        _ => progress,
+    };
     let cap = |ci: &usize| {
         caps.get(*ci)
             .ok_or_else(|| crate::Error::Internal(format!("unit names capture {ci}")))
