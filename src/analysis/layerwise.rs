@@ -64,16 +64,8 @@ pub fn merge_probe(parts: Vec<ProbeReport>) -> Result<ProbeReport, ProbeError> {
             ci_high: br.ci_high,
         });
     }
-    let pts: Vec<(usize, f64)> = records
-        .iter()
-        .filter(|r| r.task == "speaker")
-        .map(|r| (r.layer, r.accuracy))
-        .collect();
     let (speaker_below_half_layer, speaker_half_level) =
-        match crate::analysis::stats::half_fall(&pts) {
-            Some(h) => (h.layer, Some(h.level)),
-            None => (None, None),
-        };
+        crate::analysis::probe::speaker_fall(&records);
     Ok(ProbeReport {
         capture,
         options,

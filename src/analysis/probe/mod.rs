@@ -367,7 +367,10 @@ fn options_value(
 
 /// Where speaker accuracy falls half way (the one rule, [`crate::analysis::stats::half_fall`]):
 /// the layer and the level.
-fn speaker_fall(records: &[ProbeRecord]) -> (Option<usize>, Option<f64>) {
+/// The speaker task's half-fall layer and level over `records` (see [`stats::half_fall`]).
+///
+/// [`stats::half_fall`]: crate::analysis::stats::half_fall
+pub fn speaker_fall(records: &[ProbeRecord]) -> (Option<usize>, Option<f64>) {
     let pts: Vec<(usize, f64)> = records
         .iter()
         .filter(|r| r.task == "speaker")
