@@ -11,25 +11,11 @@ use super::CaptureError;
 /// an utterance `ul` does not list (left out).
 pub type CtmIntervals = (Vec<Vec<Interval>>, usize);
 
-fn err(
-    path: &Path,
-    line: usize,
-    expected: impl Into<String>,
-    found: impl Into<String>,
-) -> CaptureError {
-    CaptureError::Text {
-        path: path.to_path_buf(),
-        line,
-        expected: expected.into(),
-        found: found.into(),
-    }
-}
-
 /// A finite time >= 0 in seconds from field `what`.
 fn time(path: &Path, line: usize, what: &str, v: &str) -> Result<f64, CaptureError> {
     match v.parse::<f64>() {
         Ok(t) if t.is_finite() && t >= 0.0 => Ok(t),
-        _ => Err(err(
+        _ => Err(CaptureError::text(
             path,
             line,
             format!("a {what} in seconds (a finite number >= 0)"),
@@ -53,7 +39,7 @@ pub fn parse_ctm(path: &Path, bytes: &[u8], ul: &UttList) -> Result<CtmIntervals
             .filter(|&&b| b == b'\n')
             .count()
             + 1;
-        err(
+        CaptureError::text(
             path,
             line,
             "UTF-8 text",
@@ -73,7 +59,7 @@ pub fn parse_ctm(path: &Path, bytes: &[u8], ul: &UttList) -> Result<CtmIntervals
         }
         let f: Vec<&str> = t.split_whitespace().collect();
         if f.len() < 5 {
-            return Err(err(
+            return Err(CaptureError::text(
                 path,
                 line,
                 "5 or 6 fields: utterance channel start duration label [confidence]",

@@ -91,6 +91,21 @@ pub enum CaptureError {
 }
 
 impl CaptureError {
+    /// A text label file (TextGrid, CTM) that does not parse at `line`.
+    pub(crate) fn text(
+        path: &Path,
+        line: usize,
+        expected: impl Into<String>,
+        found: impl Into<String>,
+    ) -> Self {
+        CaptureError::Text {
+            path: path.to_path_buf(),
+            line,
+            expected: expected.into(),
+            found: found.into(),
+        }
+    }
+
     pub(crate) fn io(path: &Path, source: std::io::Error) -> Self {
         CaptureError::Io {
             path: path.to_path_buf(),

@@ -59,20 +59,6 @@ fn describe(t: &Tok) -> String {
     }
 }
 
-fn err(
-    path: &Path,
-    line: usize,
-    expected: impl Into<String>,
-    found: impl Into<String>,
-) -> CaptureError {
-    CaptureError::Text {
-        path: path.to_path_buf(),
-        line,
-        expected: expected.into(),
-        found: found.into(),
-    }
-}
-
 /// The file's text: UTF-16 (either byte order) after its byte-order mark, else UTF-8 with
 /// the mark, if any, removed.
 pub fn decode(path: &Path, bytes: &[u8]) -> Result<String, CaptureError> {
@@ -99,12 +85,17 @@ pub fn decode(path: &Path, bytes: &[u8]) -> Result<String, CaptureError> {
                     out.push(c);
                 }
                 Err(_) => {
-                    return Err(err(path, line, "UTF-16 text", "an unpaired surrogate"));
+                    return Err(CaptureError::text(
+                        path,
+                        line,
+                        "UTF-16 text",
+                        "an unpaired surrogate",
+                    ));
                 }
             }
         }
         if rest.len() % 2 == 1 {
-            return Err(err(
+            return Err(CaptureError::text(
                 path,
                 line,
                 "UTF-16 text (an even number of bytes)",
@@ -122,7 +113,7 @@ pub fn decode(path: &Path, bytes: &[u8]) -> Result<String, CaptureError> {
                 .filter(|&&b| b == b'\n')
                 .count()
                 + 1;
-            Err(err(
+            Err(CaptureError::text(
                 path,
                 line,
                 "UTF-8 or UTF-16 text (UTF-16 needs a byte-order mark)",
@@ -154,7 +145,7 @@ fn tokenize(path: &Path, text: &str) -> Result<Vec<(Tok, usize)>, CaptureError> 
             loop {
                 match it.next() {
                     None => {
-                        return Err(err(
+                        return Err(CaptureError::text(
                             path,
                             start,
                             "a closing '\"' for the text begun here",
@@ -229,25 +220,30 @@ impl Values<'_> {
                 self.pos += 1;
                 Ok(t.clone())
             }
-            None => Err(err(self.path, self.line(), expected, "the end of the file")),
+            None => Err(CaptureError::text(
+                self.path,
+                self.line(),
+                expected,
+                "the end of the file",
+            )),
         }
     }
     fn num(&mut self, expected: &str) -> Result<(f64, usize), CaptureError> {
         match self.next(expected)? {
             (Tok::Num(v), l) if v.is_finite() => Ok((v, l)),
-            (t, l) => Err(err(self.path, l, expected, describe(&t))),
+            (t, l) => Err(CaptureError::text(self.path, l, expected, describe(&t))),
         }
     }
     fn text(&mut self, expected: &str) -> Result<(String, usize), CaptureError> {
         match self.next(expected)? {
             (Tok::Str(s), l) => Ok((s, l)),
-            (t, l) => Err(err(self.path, l, expected, describe(&t))),
+            (t, l) => Err(CaptureError::text(self.path, l, expected, describe(&t))),
         }
     }
     fn count(&mut self, expected: &str) -> Result<usize, CaptureError> {
         let (v, l) = self.num(expected)?;
         if v < 0.0 || v.fract() != 0.0 || v > 1e9 {
-            return Err(err(self.path, l, expected, format!("{v}")));
+            return Err(CaptureError::text(self.path, l, expected, format!("{v}")));
         }
         Ok(v as usize)
     }
@@ -277,7 +273,7 @@ pub fn parse_textgrid(path: &Path, bytes: &[u8]) -> Result<TextGrid, CaptureErro
             .map(|t| describe(&t.0))
             .unwrap_or("an empty file".into());
         let l = first.map(|t| t.1).unwrap_or(1);
-        return Err(err(
+        return Err(CaptureError::text(
             path,
             l,
             "a TextGrid text file: File type = \"ooTextFile\", Object class = \"TextGrid\"",
@@ -301,7 +297,14 @@ pub fn parse_textgrid(path: &Path, bytes: &[u8]) -> Result<TextGrid, CaptureErro
             match f.as_str() {
                 "exists" => v.count("the number of tiers")?,
                 "absent" => 0,
-                _ => return Err(err(path, l, "<exists> or <absent>", format!("<{f}>"))),
+                _ => {
+                    return Err(CaptureError::text(
+                        path,
+                        l,
+                        "<exists> or <absent>",
+                        format!("<{f}>"),
+                    ))
+                }
             }
         }
         _ => v.count("<exists> and the number of tiers")?,
@@ -335,7 +338,7 @@ fn read_tier(v: &mut Values, grid: &mut TextGrid) -> Result<(), CaptureError> {
                 let (e, el) = v.num("the end time of an interval (xmax)")?;
                 let (label, _) = v.text("the text of an interval")?;
                 if e < s {
-                    return Err(err(
+                    return Err(CaptureError::text(
                         v.path,
                         el,
                         format!("an interval end at or after its start {s}"),
@@ -343,7 +346,7 @@ fn read_tier(v: &mut Values, grid: &mut TextGrid) -> Result<(), CaptureError> {
                     ));
                 }
                 if s < last_end - 1e-9 {
-                    return Err(err(v.path, line, format!("a start at or after the end {last_end} of the interval on line {last_line} (intervals must not overlap)"), format!("{s}")));
+                    return Err(CaptureError::text(v.path, line, format!("a start at or after the end {last_end} of the interval on line {last_line} (intervals must not overlap)"), format!("{s}")));
                 }
                 (last_end, last_line) = (e, line);
                 if e > s {
@@ -370,7 +373,7 @@ fn read_tier(v: &mut Values, grid: &mut TextGrid) -> Result<(), CaptureError> {
             grid.point_tiers.push(name);
         }
         _ => {
-            return Err(err(
+            return Err(CaptureError::text(
                 v.path,
                 cl,
                 "a tier class \"IntervalTier\" or \"TextTier\"",
