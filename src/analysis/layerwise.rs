@@ -9,6 +9,7 @@
 //! triplets) is computed here, from the merged records.
 
 use crate::analysis::abx::{self, AbxRecord, AbxResult};
+use crate::analysis::compare::{self, CkaRecord, CkaRow, CompareReport};
 use crate::analysis::probe::{BestLayer, ProbeError, ProbeRecord, ProbeReport, ProbeSummary};
 
 /// One layer's probe reports (in layer order) merged into the report of one run over all of
@@ -157,6 +158,51 @@ pub fn merge_abx(parts: Vec<AbxLayer>) -> Option<AbxResult> {
     Some(result)
 }
 
+/// A comparison without CKA ([`compare::run_without_cka`]) and the CKA rows of its A layers
+/// ([`compare::cka_row`], one per layer of A in any order) merged into the comparison of
+/// [`compare::run`]: records in (A layer, B layer) order; a cell a row left to its transpose
+/// (A compared with itself) is the transposed cell with its layers swapped.
+pub fn merge_cka(
+    mut rep: CompareReport,
+    rows: Vec<CkaRow>,
+) -> Result<CompareReport, compare::CompareError> {
+    let missing =
+        |what: String| compare::CompareError::Internal(format!("merging CKA rows: {what}"));
+    let row_of = |la: usize| {
+        rows.iter()
+            .find(|r| r.layer_a == la)
+            .ok_or_else(|| missing(format!("no row for layer {la} of A")))
+    };
+    let mut cka = Vec::with_capacity(rep.layers_a.len() * rep.layers_b.len());
+    for &la in &rep.layers_a {
+        let row = row_of(la)?;
+        for &lb in &rep.layers_b {
+            let cell = |r: &CkaRow, lb: usize| r.records.iter().find(|c| c.layer_b == lb).cloned();
+            let rec = match cell(row, lb) {
+                Some(c) => c,
+                None if row.mirrored.contains(&lb) => {
+                    let t = cell(row_of(lb)?, la).ok_or_else(|| {
+                        missing(format!("layer {lb} of A holds no cell for layer {la} of B"))
+                    })?;
+                    CkaRecord {
+                        layer_a: la,
+                        layer_b: lb,
+                        ..t
+                    }
+                }
+                None => {
+                    return Err(missing(format!(
+                        "no cell for layers {la} of A and {lb} of B"
+                    )))
+                }
+            };
+            cka.push(rec);
+        }
+    }
+    rep.cka = cka;
+    Ok(rep)
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -210,6 +256,140 @@ mod tests {
             serde_json::to_string(&merged).unwrap(),
             serde_json::to_string(&whole).unwrap()
         );
+    }
+
+    #[test]
+    fn cka_row_by_row_equals_one_run() {
+        // A comparison split into one CKA row per layer of A plus the rest (pairing, probe
+        // deltas) serialises to the same bytes as one run, for each kernel and estimator,
+        // and for a capture compared with itself (rows past the diagonal mirrored).
+        let (d, cap) = small_demo();
+        let early = Capture::open(&d.path().join("early"), &OpenOptions::default()).unwrap();
+        let p = Progress::hidden();
+        let common = CommonOptions {
+            seed: 4,
+            threads: 0,
+            layers: None,
+        };
+        let base = compare::CompareOptions {
+            bootstrap: 20,
+            ..Default::default()
+        };
+        let cases = [
+            (&early, &cap, base.clone()),
+            (
+                &cap,
+                &cap,
+                compare::CompareOptions {
+                    probe: false,
+                    ..base.clone()
+                },
+            ),
+            (
+                &early,
+                &cap,
+                compare::CompareOptions {
+                    estimator: compare::Estimator::Minibatch,
+                    batch_size: 64,
+                    probe: false,
+                    ..base.clone()
+                },
+            ),
+            (
+                &early,
+                &cap,
+                compare::CompareOptions {
+                    kernel: compare::Kernel::Rbf,
+                    rbf_frames: 300,
+                    probe: false,
+                    ..base.clone()
+                },
+            ),
+        ];
+        for (a, b, opts) in cases {
+            let whole = compare::run(a, b, &opts, &common, &p, None).unwrap();
+            let rest = compare::run_without_cka(a, b, &opts, &common, &p, None).unwrap();
+            assert!(rest.cka.is_empty());
+            // Rows in reverse order: the merge places them by layer.
+            let rows = a
+                .layers
+                .iter()
+                .rev()
+                .map(|l| compare::cka_row(a, b, &opts, &common, l.id, &p).unwrap())
+                .collect();
+            let merged = merge_cka(rest, rows).unwrap();
+            // The one run itself: every (A layer, B layer) in order, and for the linear
+            // kernel each value as CKA computed directly on the two whole layers.
+            assert_eq!(whole.cka.len(), a.layers.len() * b.layers.len());
+            for (k, r) in whole.cka.iter().enumerate() {
+                let (i, j) = (k / b.layers.len(), k % b.layers.len());
+                assert_eq!((r.layer_a, r.layer_b), (a.layers[i].id, b.layers[j].id));
+                if (opts.kernel, opts.estimator)
+                    == (compare::Kernel::Linear, compare::Estimator::Full)
+                {
+                    let direct = compare::cka::linear_cka(
+                        &a.read_layer(i).unwrap().view(),
+                        &b.read_layer(j).unwrap().view(),
+                    );
+                    assert!(
+                        (r.cka - direct).abs() < 1e-9,
+                        "{k}: {} against {direct}",
+                        r.cka
+                    );
+                }
+            }
+            // The files `compare` writes (records, CSV, figures) from each, byte for byte.
+            let written = |r: &CompareReport| {
+                let dir = tempfile::tempdir().unwrap();
+                let w = crate::commands::compare::write(r, dir.path()).unwrap();
+                assert!(!w.files.is_empty());
+                w.files
+                    .iter()
+                    .map(|f| {
+                        (
+                            f.strip_prefix(dir.path()).unwrap().to_path_buf(),
+                            std::fs::read(f).unwrap(),
+                        )
+                    })
+                    .collect::<Vec<_>>()
+            };
+            let (x, y) = (written(&merged), written(&whole));
+            assert_eq!(x.len(), y.len());
+            for ((fx, bx), (fy, by)) in x.iter().zip(&y) {
+                assert_eq!(fx, fy);
+                assert!(
+                    bx == by,
+                    "{} differs ({:?} {:?})",
+                    fx.display(),
+                    opts.kernel,
+                    opts.estimator
+                );
+            }
+        }
+    }
+
+    #[test]
+    fn a_row_of_a_capture_against_itself_leaves_the_lower_triangle_to_the_merge() {
+        let (_d, cap) = small_demo();
+        let opts = compare::CompareOptions {
+            probe: false,
+            ..Default::default()
+        };
+        let common = CommonOptions {
+            seed: 4,
+            threads: 0,
+            layers: None,
+        };
+        let ids: Vec<usize> = cap.layers.iter().map(|l| l.id).collect();
+        let row =
+            compare::cka_row(&cap, &cap, &opts, &common, ids[2], &Progress::hidden()).unwrap();
+        assert_eq!(row.mirrored, ids[..2].to_vec());
+        assert_eq!(row.records.len(), ids.len() - 2);
+        assert_eq!(row.records[0].cka, 1.0, "the diagonal");
+        // Without its rows the merge refuses rather than leaving cells out.
+        let rest = compare::run_without_cka(&cap, &cap, &opts, &common, &Progress::hidden(), None)
+            .unwrap();
+        assert!(merge_cka(rest, vec![row]).is_err());
     }
 
     #[test]

@@ -156,10 +156,14 @@ fn same_capture(a: &Capture, b: &Capture) -> bool {
 /// Compare captures `a` and `b`: pair frames, compute CKA between every selected layer of A
 /// and every selected layer of B, then (unless `opts.probe` is off) probe deltas on every
 /// layer number present in both, with the probe trainer of [`crate::analysis::probe`] (see
-/// [`delta`]). `probes` are the probe stage's reports of A and B when the caller ran it
-/// (`report`): the deltas then pair their test predictions, so each (layer, task) shows the
-/// same accuracy as the probe stage; without them the probe stage is run here with its
-/// default split rule and seed.
+/// [`delta`]). `probes` are the probe stage's reports of A and B when the caller ran it: the
+/// deltas then pair their test predictions, so each (layer, task) shows the same accuracy as
+/// the probe stage; without them the probe stage is run here with its default split rule and
+/// seed.
+///
+/// The CKA matrix is computed row by row ([`cka_row`] computes one row alone) and the rows
+/// merged by [`crate::analysis::layerwise::merge_cka`], so a run split into rows gives the
+/// same records.
 pub fn run(
     a: &Capture,
     b: &Capture,
@@ -168,6 +172,81 @@ pub fn run(
     progress: &Progress,
     probes: Option<[&ProbeReport; 2]>,
 ) -> Result<CompareReport, CompareError> {
+    let prep = prepare(a, b, opts, common)?;
+    let (na, nb) = (prep.sel_a.len(), prep.sel_b.len());
+    let step = progress.step(cka_step(opts), (na * nb) as u64);
+    let mut cache = Cache::new(nb, true);
+    let rows = (0..na)
+        .map(|i| cka_row_at(a, b, &prep, opts, i, &mut cache, &step))
+        .collect::<Result<Vec<_>, _>>()?;
+    drop(step);
+    let rep = without_cka(a, b, prep, opts, common, progress, probes)?;
+    crate::analysis::layerwise::merge_cka(rep, rows)
+}
+
+/// The comparison without its CKA matrix (`cka` empty): the pairing, notes, options and probe
+/// deltas. With [`cka_row`] for each layer of A and
+/// [`crate::analysis::layerwise::merge_cka`], the report [`run`] gives.
+pub fn run_without_cka(
+    a: &Capture,
+    b: &Capture,
+    opts: &CompareOptions,
+    common: &CommonOptions,
+    progress: &Progress,
+    probes: Option<[&ProbeReport; 2]>,
+) -> Result<CompareReport, CompareError> {
+    let prep = prepare(a, b, opts, common)?;
+    without_cka(a, b, prep, opts, common, progress, probes)
+}
+
+/// One row of the CKA matrix: layer number `layer` of A against every selected layer of B,
+/// as [`run`] computes it among the other rows. Two layers are resident at a time (one of A,
+/// one of B; for RBF their n × n kernels).
+pub fn cka_row(
+    a: &Capture,
+    b: &Capture,
+    opts: &CompareOptions,
+    common: &CommonOptions,
+    layer: usize,
+    progress: &Progress,
+) -> Result<CkaRow, CompareError> {
+    let prep = prepare(a, b, opts, common)?;
+    let i = prep
+        .sel_a
+        .iter()
+        .position(|&li| a.layers[li].id == layer)
+        .ok_or_else(|| {
+            CompareError::Input(format!(
+                "{}: expected a selected layer, found layer {layer}",
+                a.dir.display()
+            ))
+        })?;
+    let step = progress.step(
+        &format!("{}, layer {layer} of {}", cka_step(opts), a.name),
+        prep.sel_b.len() as u64,
+    );
+    let mut cache = Cache::new(prep.sel_b.len(), false);
+    Ok(cka_row_at(a, b, &prep, opts, i, &mut cache, &step)?)
+}
+
+/// What every part of one comparison shares: the selected layers (indices), the pairing,
+/// the paired rows CKA uses, and whether A is compared with itself (same capture, rows and
+/// layers: the CKA matrix is symmetric and only its upper triangle is computed).
+struct Prepared {
+    sel_a: Vec<usize>,
+    sel_b: Vec<usize>,
+    pairing: Pairing,
+    rows_a: Vec<usize>,
+    rows_b: Vec<usize>,
+    symmetric: bool,
+}
+
+fn prepare(
+    a: &Capture,
+    b: &Capture,
+    opts: &CompareOptions,
+    common: &CommonOptions,
+) -> Result<Prepared, CompareError> {
     opts.check()?;
     let sel_a = a.select_layers(common.layers.as_ref())?;
     let sel_b = b.select_layers(common.layers.as_ref())?;
@@ -184,18 +263,43 @@ pub fn run(
             pairing.used
         )));
     }
-    let rows_a: Vec<usize> = keep.iter().map(|&k| pairing.rows_a[k]).collect();
-    let rows_b: Vec<usize> = keep.iter().map(|&k| pairing.rows_b[k]).collect();
-    let layers = LayerPair {
-        a,
-        b,
-        sel_a: &sel_a,
-        sel_b: &sel_b,
-    };
-    let mat = cka_matrix(&layers, rows_a, rows_b, opts, common.seed, progress)?;
-    let ids_a: Vec<usize> = sel_a.iter().map(|&i| a.layers[i].id).collect();
-    let ids_b: Vec<usize> = sel_b.iter().map(|&i| b.layers[i].id).collect();
-    let cka = cka_records(&ids_a, &ids_b, &mat, opts, pairing.used);
+    let mut rows_a: Vec<usize> = keep.iter().map(|&k| pairing.rows_a[k]).collect();
+    let mut rows_b: Vec<usize> = keep.iter().map(|&k| pairing.rows_b[k]).collect();
+    let symmetric = (opts.kernel, opts.estimator) == (Kernel::Linear, Estimator::Full)
+        && same_capture(a, b)
+        && rows_a == rows_b
+        && sel_a == sel_b;
+    if opts.estimator == Estimator::Minibatch {
+        // Shuffle the pairs once (seeded) so each batch mixes utterances and speakers.
+        let mut order: Vec<usize> = (0..rows_a.len()).collect();
+        let mut rng = ChaCha8Rng::seed_from_u64(common.seed ^ 0xc0a1_0002);
+        rand::seq::SliceRandom::shuffle(order.as_mut_slice(), &mut rng);
+        rows_a = order.iter().map(|&k| rows_a[k]).collect();
+        rows_b = order.iter().map(|&k| rows_b[k]).collect();
+    }
+    Ok(Prepared {
+        sel_a,
+        sel_b,
+        pairing,
+        rows_a,
+        rows_b,
+        symmetric,
+    })
+}
+
+/// The report of [`run`] with `cka` left empty.
+fn without_cka(
+    a: &Capture,
+    b: &Capture,
+    prep: Prepared,
+    opts: &CompareOptions,
+    common: &CommonOptions,
+    progress: &Progress,
+    probes: Option<[&ProbeReport; 2]>,
+) -> Result<CompareReport, CompareError> {
+    let ids_a: Vec<usize> = prep.sel_a.iter().map(|&i| a.layers[i].id).collect();
+    let ids_b: Vec<usize> = prep.sel_b.iter().map(|&i| b.layers[i].id).collect();
+    let pairing = prep.pairing;
     let mut notes = Vec::new();
     if pairing.dropped_a + pairing.dropped_b > 0 {
         notes.push(format!(
@@ -204,6 +308,12 @@ pub fn run(
         ));
     }
     let probe_delta = if opts.probe {
+        let layers = LayerPair {
+            a,
+            b,
+            sel_a: &prep.sel_a,
+            sel_b: &prep.sel_b,
+        };
         let ctx = probe_deltas::Context {
             layers: &layers,
             pairing: &pairing,
@@ -221,7 +331,7 @@ pub fn run(
         layers_a: ids_a,
         layers_b: ids_b,
         pairing,
-        cka,
+        cka: Vec::new(),
         probe_delta,
         notes,
         options,
@@ -262,141 +372,142 @@ fn cka_limit(opts: &CompareOptions) -> Result<Option<usize>, CompareError> {
     }
 }
 
-/// CKA between every selected layer of A (rows) and of B (columns) on the paired rows in use,
-/// with the kernel and estimator of `opts`.
-fn cka_matrix(
-    l: &LayerPair,
-    rows_a: Vec<usize>,
-    rows_b: Vec<usize>,
-    opts: &CompareOptions,
-    seed: u64,
-    progress: &Progress,
-) -> Result<Array2<f64>, CaptureError> {
-    let (a, b, sel_a, sel_b) = (l.a, l.b, l.sel_a, l.sel_b);
+/// One row of the CKA matrix: layer `layer_a` of A against each selected layer of B, in B's
+/// order. `mirrored` are the B layers before the diagonal when A is compared with itself:
+/// their values are those of the transposed cells, taken from the earlier rows when merged.
+#[derive(Clone, Debug, PartialEq, Serialize, serde::Deserialize)]
+pub struct CkaRow {
+    /// Layer number in A.
+    pub layer_a: usize,
+    /// The cells computed, in B's layer order.
+    pub records: Vec<CkaRecord>,
+    /// Layer numbers of B whose cell is the transposed one.
+    pub mirrored: Vec<usize>,
+}
+
+fn cka_step(opts: &CompareOptions) -> &'static str {
     match (opts.kernel, opts.estimator) {
-        (Kernel::Linear, Estimator::Full) => {
-            let symmetric = same_capture(a, b) && rows_a == rows_b && sel_a == sel_b;
-            linear_matrix(
-                a,
-                b,
-                sel_a,
-                sel_b,
-                RowReader::new(a, rows_a),
-                RowReader::new(b, rows_b),
-                symmetric,
-                progress,
-            )
-        }
-        (Kernel::Linear, Estimator::Minibatch) => {
-            // Shuffle the pairs once (seeded) so each batch mixes utterances and speakers.
-            let mut order: Vec<usize> = (0..rows_a.len()).collect();
-            let mut rng = ChaCha8Rng::seed_from_u64(seed ^ 0xc0a1_0002);
-            rand::seq::SliceRandom::shuffle(order.as_mut_slice(), &mut rng);
-            let ra: Vec<usize> = order.iter().map(|&k| rows_a[k]).collect();
-            let rb: Vec<usize> = order.iter().map(|&k| rows_b[k]).collect();
-            minibatch_matrix(a, b, sel_a, sel_b, &ra, &rb, opts.batch_size, progress)
-        }
-        (Kernel::Rbf, _) => rbf_matrix(a, b, sel_a, sel_b, &rows_a, &rows_b, progress),
+        (Kernel::Linear, Estimator::Full) => "linear CKA",
+        (Kernel::Linear, Estimator::Minibatch) => "minibatch CKA",
+        (Kernel::Rbf, _) => "RBF CKA",
     }
 }
 
-/// One record per (A layer, B layer) of the matrix, A's layers outermost.
-fn cka_records(
-    ids_a: &[usize],
-    ids_b: &[usize],
-    mat: &Array2<f64>,
-    opts: &CompareOptions,
-    n_frames: usize,
-) -> Vec<CkaRecord> {
-    let mut cka = Vec::with_capacity(ids_a.len() * ids_b.len());
-    for (i, &la) in ids_a.iter().enumerate() {
-        for (j, &lb) in ids_b.iter().enumerate() {
-            cka.push(CkaRecord {
-                layer_a: la,
-                layer_b: lb,
-                cka: mat[[i, j]],
-                kernel: opts.kernel,
-                estimator: opts.estimator,
-                n_frames,
-            });
-        }
-    }
-    cka
+/// What a CKA row reuses from earlier rows of the same run: per B layer its Gram norm
+/// (linear), its summed HSIC(L, L) (minibatch) or, when `kernels` is kept, its unit-norm
+/// centred RBF kernel (f32, n² values each). A row computed alone starts empty and keeps no
+/// kernel, so it holds two layers at a time. The values are the same either way: each is a
+/// deterministic function of one layer's rows.
+struct Cache {
+    scalars: Vec<Option<f64>>,
+    kernels: Option<Vec<Option<Array2<f32>>>>,
 }
 
-/// Linear CKA matrix, streaming: for each A layer (read once), loop over B layers. B's Gram
-/// norms are computed on the first pass and cached; with `symmetric` (A = B) only the upper
-/// triangle is computed and each layer is read once per row of the triangle.
+impl Cache {
+    fn new(nb: usize, keep_kernels: bool) -> Self {
+        Cache {
+            scalars: vec![None; nb],
+            kernels: keep_kernels.then(|| vec![None; nb]),
+        }
+    }
+}
+
+/// Row `i` of the CKA matrix (index into the selected layers of A).
 #[allow(clippy::too_many_arguments)]
-fn linear_matrix(
+fn cka_row_at(
     a: &Capture,
     b: &Capture,
-    sel_a: &[usize],
-    sel_b: &[usize],
-    ra: RowReader,
-    rb: RowReader,
-    symmetric: bool,
-    progress: &Progress,
-) -> Result<Array2<f64>, CaptureError> {
-    let (na, nb) = (sel_a.len(), sel_b.len());
-    let mut out = Array2::<f64>::zeros((na, nb));
-    let step = progress.step("linear CKA", (na * nb) as u64);
-    let mut norm_b: Vec<Option<f64>> = vec![None; nb];
-    let _ = (a, b);
-    for (i, &la) in sel_a.iter().enumerate() {
-        let mut x = ra.read(la)?;
-        cka::centre(&mut x);
-        let norm_x = cka::gram_norm(&x.view());
-        if symmetric {
-            norm_b[i] = Some(norm_x);
+    prep: &Prepared,
+    opts: &CompareOptions,
+    i: usize,
+    cache: &mut Cache,
+    step: &crate::progress::Step,
+) -> Result<CkaRow, CaptureError> {
+    let rb = RowReader::new(b, prep.rows_b.clone());
+    let la = prep.sel_a[i];
+    let values = match (opts.kernel, opts.estimator) {
+        (Kernel::Linear, Estimator::Full) => {
+            let ra = RowReader::new(a, prep.rows_a.clone());
+            linear_row(ra.read(la)?, &rb, prep, i, cache, step)?
         }
-        for (j, &lb) in sel_b.iter().enumerate() {
-            if symmetric && j < i {
-                out[[i, j]] = out[[j, i]];
-                step.inc(1);
-                continue;
-            }
-            let v = if symmetric && j == i {
-                if norm_x > 0.0 {
-                    1.0
-                } else {
-                    0.0
-                }
-            } else {
-                let mut y = rb.read(lb)?;
-                cka::centre(&mut y);
-                let ny = match norm_b[j] {
-                    Some(v) => v,
-                    None => {
-                        let v = cka::gram_norm(&y.view());
-                        norm_b[j] = Some(v);
-                        v
-                    }
-                };
-                cka::linear_from_parts(cka::cross2(&x.view(), &y.view()), norm_x, ny)
-            };
-            out[[i, j]] = v;
-            step.inc(1);
+        (Kernel::Linear, Estimator::Minibatch) => {
+            let x = a.read_layer_rows(la, &prep.rows_a)?;
+            minibatch_row(&x, &rb, prep, opts.batch_size, cache, step)?
         }
+        (Kernel::Rbf, _) => {
+            let x = a.read_layer_rows(la, &prep.rows_a)?;
+            rbf_row(&x, &rb, prep, cache, step)?
+        }
+    };
+    let mut row = CkaRow {
+        layer_a: a.layers[la].id,
+        records: Vec::with_capacity(values.len()),
+        mirrored: Vec::new(),
+    };
+    for (&lb, v) in prep.sel_b.iter().zip(values) {
+        let layer_b = b.layers[lb].id;
+        match v {
+            Some(cka) => row.records.push(CkaRecord {
+                layer_a: row.layer_a,
+                layer_b,
+                cka,
+                kernel: opts.kernel,
+                estimator: opts.estimator,
+                n_frames: prep.pairing.used,
+            }),
+            None => row.mirrored.push(layer_b),
+        }
+    }
+    Ok(row)
+}
+
+/// Linear CKA of one A layer `x` against each B layer, read one at a time. When A is
+/// compared with itself, cells before the diagonal are None (their transposes hold them) and
+/// the diagonal is 1 without reading B.
+fn linear_row(
+    mut x: Array2<f32>,
+    rb: &RowReader,
+    prep: &Prepared,
+    i: usize,
+    cache: &mut Cache,
+    step: &crate::progress::Step,
+) -> Result<Vec<Option<f64>>, CaptureError> {
+    cka::centre(&mut x);
+    let norm_x = cka::gram_norm(&x.view());
+    let mut out = Vec::with_capacity(prep.sel_b.len());
+    for (j, &lb) in prep.sel_b.iter().enumerate() {
+        let v = if prep.symmetric && j < i {
+            None
+        } else if prep.symmetric && j == i {
+            Some(if norm_x > 0.0 { 1.0 } else { 0.0 })
+        } else {
+            let mut y = rb.read(lb)?;
+            cka::centre(&mut y);
+            let ny = *cache.scalars[j].get_or_insert_with(|| cka::gram_norm(&y.view()));
+            Some(cka::linear_from_parts(
+                cka::cross2(&x.view(), &y.view()),
+                norm_x,
+                ny,
+            ))
+        };
+        out.push(v);
+        step.inc(1);
     }
     Ok(out)
 }
 
-/// Minibatch linear CKA: rows are already shuffled; batches are consecutive runs of
-/// `batch` rows (a last run shorter than 4 is left out). Per A layer the batch Gram matrices
-/// are kept (n · batch values); B layers are streamed.
-#[allow(clippy::too_many_arguments)]
-fn minibatch_matrix(
-    a: &Capture,
-    b: &Capture,
-    sel_a: &[usize],
-    sel_b: &[usize],
-    rows_a: &[usize],
-    rows_b: &[usize],
+/// Minibatch linear CKA of one A layer `x` (rows already shuffled) against each B layer.
+/// Batches are consecutive runs of `batch` rows (a last run shorter than 4 is left out); the
+/// A layer's batch Gram matrices are kept (n · batch values), B layers are streamed.
+fn minibatch_row(
+    x: &Array2<f32>,
+    rb: &RowReader,
+    prep: &Prepared,
     batch: usize,
-    progress: &Progress,
-) -> Result<Array2<f64>, CaptureError> {
-    let n = rows_a.len();
+    cache: &mut Cache,
+    step: &crate::progress::Step,
+) -> Result<Vec<Option<f64>>, CaptureError> {
+    let n = x.nrows();
     let bounds: Vec<(usize, usize)> = (0..n)
         .step_by(batch)
         .map(|lo| (lo, (lo + batch).min(n)))
@@ -409,54 +520,51 @@ fn minibatch_matrix(
             .map(|&(lo, hi)| cka::linear_gram(&x.slice(ndarray::s![lo..hi, ..])))
             .collect()
     };
-    let (na, nb) = (sel_a.len(), sel_b.len());
-    let mut out = Array2::<f64>::zeros((na, nb));
-    let step = progress.step("minibatch CKA", (na * nb) as u64);
-    let mut self_b: Vec<Option<f64>> = vec![None; nb];
-    for (i, &la) in sel_a.iter().enumerate() {
-        let ka = grams(&a.read_layer_rows(la, rows_a)?);
-        let kk: f64 = ka.iter().map(|k| cka::hsic_unbiased(k, k)).sum();
-        for (j, &lb) in sel_b.iter().enumerate() {
-            let lbm = grams(&b.read_layer_rows(lb, rows_b)?);
-            let ll = *self_b[j]
-                .get_or_insert_with(|| lbm.iter().map(|l| cka::hsic_unbiased(l, l)).sum());
-            let kl: f64 = ka
-                .iter()
-                .zip(&lbm)
-                .map(|(k, l)| cka::hsic_unbiased(k, l))
-                .sum();
-            out[[i, j]] = cka::MinibatchSums { kl, kk, ll }.cka();
-            step.inc(1);
-        }
+    let ka = grams(x);
+    let kk: f64 = ka.iter().map(|k| cka::hsic_unbiased(k, k)).sum();
+    let mut out = Vec::with_capacity(prep.sel_b.len());
+    for (j, &lb) in prep.sel_b.iter().enumerate() {
+        let lbm = grams(&rb.cap.read_layer_rows(lb, &rb.rows)?);
+        let ll = *cache.scalars[j]
+            .get_or_insert_with(|| lbm.iter().map(|l| cka::hsic_unbiased(l, l)).sum());
+        let kl: f64 = ka
+            .iter()
+            .zip(&lbm)
+            .map(|(k, l)| cka::hsic_unbiased(k, l))
+            .sum();
+        out.push(Some(cka::MinibatchSums { kl, kk, ll }.cka()));
+        step.inc(1);
     }
     Ok(out)
 }
 
-/// RBF CKA on the subsample: B's unit-norm centred kernels are cached (f32, n² each), each A
-/// layer's kernel is built once.
-fn rbf_matrix(
-    a: &Capture,
-    b: &Capture,
-    sel_a: &[usize],
-    sel_b: &[usize],
-    rows_a: &[usize],
-    rows_b: &[usize],
-    progress: &Progress,
-) -> Result<Array2<f64>, CaptureError> {
-    let (na, nb) = (sel_a.len(), sel_b.len());
-    let step = progress.step("RBF CKA", (na + nb) as u64);
-    let mut kb = Vec::with_capacity(nb);
-    for &lb in sel_b {
-        let (k, _) = cka::rbf_unit_gram(&b.read_layer_rows(lb, rows_b)?.view());
-        kb.push(k.mapv(|v| v as f32));
-        step.inc(1);
-    }
-    let mut out = Array2::<f64>::zeros((na, nb));
-    for (i, &la) in sel_a.iter().enumerate() {
-        let (k, _) = cka::rbf_unit_gram(&a.read_layer_rows(la, rows_a)?.view());
-        for (j, l) in kb.iter().enumerate() {
-            out[[i, j]] = k.iter().zip(l.iter()).map(|(x, &y)| x * y as f64).sum();
-        }
+/// RBF CKA of one A layer `x` (the subsample) against each B layer: the inner product of the
+/// two unit-norm centred kernels, B's kept in f32.
+fn rbf_row(
+    x: &Array2<f32>,
+    rb: &RowReader,
+    prep: &Prepared,
+    cache: &mut Cache,
+    step: &crate::progress::Step,
+) -> Result<Vec<Option<f64>>, CaptureError> {
+    let (k, _) = cka::rbf_unit_gram(&x.view());
+    let mut out = Vec::with_capacity(prep.sel_b.len());
+    for (j, &lb) in prep.sel_b.iter().enumerate() {
+        let dot =
+            |l: &Array2<f32>| -> f64 { k.iter().zip(l.iter()).map(|(x, &y)| x * y as f64).sum() };
+        let v = match cache.kernels.as_ref().and_then(|c| c[j].as_ref()) {
+            Some(l) => dot(l),
+            None => {
+                let (l, _) = cka::rbf_unit_gram(&rb.cap.read_layer_rows(lb, &rb.rows)?.view());
+                let l = l.mapv(|v| v as f32);
+                let v = dot(&l);
+                if let Some(c) = cache.kernels.as_mut() {
+                    c[j] = Some(l);
+                }
+                v
+            }
+        };
+        out.push(Some(v));
         step.inc(1);
     }
     Ok(out)

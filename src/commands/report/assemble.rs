@@ -127,7 +127,8 @@ struct CompareResult {
     written: Written,
 }
 
-/// With two captures, write `compare.json` and its figures from the comparison's part.
+/// With two captures, write `compare.json` and its figures from the comparison's parts: its
+/// CKA rows merged into the rest.
 fn compare_outputs(
     caps: &[Capture],
     parts: &mut Parts,
@@ -138,11 +139,20 @@ fn compare_outputs(
         return Ok(None);
     };
     let t = Instant::now();
+    let (rows, row_seconds) = parts.take(|u| matches!(u, Unit::CkaRow { .. }));
+    let rows = rows
+        .into_iter()
+        .map(|p| match p {
+            Part::CkaRow(r) => Ok(r),
+            _ => Err(missing("CKA row")),
+        })
+        .collect::<crate::Result<Vec<_>>>()?;
     let (found, seconds) = parts.take(|u| *u == Unit::Compare);
     let Some(Part::Compare(p)) = found.into_iter().next() else {
         return Err(missing("comparison"));
     };
-    let rep = crate::records::compare::CompareReport::from(p);
+    let rep = layerwise::merge_cka(crate::records::compare::CompareReport::from(p), rows)?;
+    let seconds = seconds + row_seconds;
     let written = crate::commands::compare::write(&rep, &opts.out)?;
     clock.0.push(StepTime {
         step: "compare".into(),

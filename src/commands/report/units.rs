@@ -1,6 +1,7 @@
 //! The work of a report as units that run independently: (capture, layer) for the probe and
-//! ABX, one whole capture for its map (the map's layers chain their starting points) and the
-//! comparison of two captures. Each unit computes records and returns them as a [`Part`];
+//! ABX, one whole capture for its map (the map's layers chain their starting points), and
+//! for two captures one unit per layer of the first for its row of the CKA matrix and one
+//! for the rest of the comparison (the pairing and the probe deltas). Each unit computes records and returns them as a [`Part`];
 //! nothing is written. `report` runs every unit in-process; `voxstrata unit` runs one and
 //! writes its part as JSON; `assemble` reads the parts back. Parts pass through the same
 //! JSON in both cases ([`Part::encode`] and [`Part::decode`]), so the files written from them
@@ -11,6 +12,7 @@ use serde::{Deserialize, Serialize};
 
 use super::ReportOptions;
 use crate::analysis::abx::AbxError;
+use crate::analysis::compare::{self, CkaRow};
 use crate::analysis::layerwise::{self, AbxLayer};
 use crate::capture::{Capture, LayerSelection};
 use crate::records::compare::{CkaRecord, CompareReport, Estimator, Kernel, Pairing, ProbeDelta};
@@ -43,7 +45,13 @@ pub enum Unit {
         /// Capture index.
         capture: usize,
     },
-    /// CKA and probe deltas between the two captures.
+    /// One row of the CKA matrix: a layer of the first capture against every layer of the
+    /// second.
+    CkaRow {
+        /// Layer number in the first capture.
+        layer: usize,
+    },
+    /// The rest of the comparison of the two captures: the pairing and the probe deltas.
     Compare,
 }
 
@@ -55,25 +63,33 @@ impl Unit {
             Unit::Probe { capture, layer } => format!("probe of {}, layer {layer}", name(capture)),
             Unit::Abx { capture, layer } => format!("ABX of {}, layer {layer}", name(capture)),
             Unit::Map { capture } => format!("map of {}", name(capture)),
-            Unit::Compare => "comparison".to_string(),
+            Unit::CkaRow { layer } => {
+                format!("CKA of {}, layer {layer}, against {}", name(&0), name(&1))
+            }
+            Unit::Compare => "comparison (pairing and probe deltas)".to_string(),
         }
     }
 }
 
 /// Every unit of a report on `caps` with `opts`, in the order the report writes them: per
-/// capture its probe layers, its map and its ABX layers, then the comparison.
+/// capture its probe layers, its map and its ABX layers, then the comparison's CKA rows (one
+/// per layer of the first capture) and the rest of the comparison.
 pub fn plan(
     caps: &[Capture],
     opts: &ReportOptions,
     common: &CommonOptions,
 ) -> crate::Result<Vec<Unit>> {
     let mut units = Vec::new();
+    let mut first_ids = Vec::new();
     for (ci, c) in caps.iter().enumerate() {
         let ids: Vec<usize> = c
             .select_layers(common.layers.as_ref())?
             .into_iter()
             .map(|i| c.layers[i].id)
             .collect();
+        if ci == 0 {
+            first_ids = ids.clone();
+        }
         units.extend(ids.iter().map(|&layer| Unit::Probe { capture: ci, layer }));
         units.push(Unit::Map { capture: ci });
         if opts.abx.is_some() {
@@ -81,6 +97,7 @@ pub fn plan(
         }
     }
     if caps.len() == 2 {
+        units.extend(first_ids.iter().map(|&layer| Unit::CkaRow { layer }));
         units.push(Unit::Compare);
     }
     Ok(units)
@@ -101,7 +118,9 @@ pub enum Part {
     },
     /// A capture's maps.
     Map(MapPart),
-    /// The comparison.
+    /// One row of the CKA matrix.
+    CkaRow(CkaRow),
+    /// The comparison without its CKA matrix.
     Compare(ComparePart),
 }
 
@@ -128,7 +147,7 @@ pub fn run(
 ) -> crate::Result<Part> {
     let named;
     let progress = match (caps, unit) {
-        ([a, b], Unit::Compare) => {
+        ([a, b], Unit::Compare | Unit::CkaRow { .. }) => {
             named = progress.with_prefix(&format!("{} against {}", a.name, b.name));
             &named
         }
@@ -173,13 +192,22 @@ pub fn run(
             let r = crate::analysis::map::run(cap(capture)?, &opts.map, common, progress)?;
             Ok(Part::Map(MapPart::from(r)))
         }
+        Unit::CkaRow { layer } => {
+            let [a, b] = caps else {
+                return Err(crate::Error::Internal(
+                    "CKA row without two captures".into(),
+                ));
+            };
+            let r = compare::cka_row(a, b, &opts.compare, common, *layer, progress)?;
+            Ok(Part::CkaRow(r))
+        }
         Unit::Compare => {
             let [a, b] = caps else {
                 return Err(crate::Error::Internal(
                     "comparison without two captures".into(),
                 ));
             };
-            let r = crate::analysis::compare::run(a, b, &opts.compare, common, progress, None)?;
+            let r = compare::run_without_cka(a, b, &opts.compare, common, progress, None)?;
             Ok(Part::Compare(ComparePart::from(r)))
         }
     }
@@ -252,7 +280,8 @@ impl MapPart {
     }
 }
 
-/// A [`CompareReport`] in serialisable form (the pairs' rows, which nothing writes, left out).
+/// A [`CompareReport`] in serialisable form (the pairs' rows, which nothing writes, left out;
+/// `cka` empty in a [`Unit::Compare`] part, filled from the [`Unit::CkaRow`] parts).
 #[derive(Clone, Debug, Serialize, Deserialize)]
 pub struct ComparePart {
     captures: Vec<CaptureRef>,
