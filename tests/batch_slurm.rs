@@ -170,35 +170,47 @@ fn files(dir: &Path) -> Vec<PathBuf> {
 #[test]
 fn batch_on_slurm_equals_report_and_a_failed_unit_stops_assembly() {
     let work = tempfile::tempdir().unwrap();
-    let w = work.path();
+    // The runs start in a folder whose name holds a space, a quote and `#`, and the split run
+    // writes to one that also holds `%`: the scripts must name them to sbatch (#SBATCH
+    // --chdir, --output with its `%` patterns) and to the shell.
+    let w = &work.path().join("work dir #1 it's");
+    std::fs::create_dir_all(w).unwrap();
     let r = run_text(["demo", "--size", "small", "--out", s(&w.join("demo"))]);
     assert_eq!(r.code, 0, "{r:?}");
-    let Some(cluster) = start(w) else {
+    let Some(cluster) = start(work.path()) else {
         return;
     };
     submitted_run_equals_report(&cluster, w);
     failed_unit_stops_assembly(&cluster, w);
 }
 
+/// The split run's report folder.
+const SPLIT: &str = "split 100% \"done\"";
+
 fn submitted_run_equals_report(c: &Cluster, w: &Path) {
     let args = ["demo/early", "demo/final", "--seed", "7", "--quiet"];
     let r = vx(
         c,
         w,
-        &[&["batch", "--out", "split", "--submit"], &args[..]].concat(),
+        &[&["batch", "--out", SPLIT, "--submit"], &args[..]].concat(),
     );
     assert_eq!(r.code, 0, "{r:?}");
     assert!(r.stdout.contains("submitted job array"), "{}", r.stdout);
     assert!(r.stdout.contains("submitted assembly job"), "{}", r.stdout);
     wait_for_empty_queue(c);
     assert!(
-        w.join("split/index.html").is_file(),
+        w.join(SPLIT).join("index.html").is_file(),
         "the assembly job wrote no report; its log: {:?}",
-        std::fs::read_to_string(w.join("split/batch/logs/assemble.log"))
+        std::fs::read_to_string(w.join(SPLIT).join("batch/logs/assemble.log"))
     );
+    // Each task logged to its own file: Slurm replaced `%a` and kept the folder's own `%`.
+    for i in [0, 1] {
+        let log = w.join(SPLIT).join(format!("batch/logs/unit-{i}.log"));
+        assert!(log.is_file(), "no log {}", log.display());
+    }
     let r = vx(c, w, &[&["report", "--out", "one"], &args[..]].concat());
     assert_eq!(r.code, 0, "{r:?}");
-    let (one, split) = (files(&w.join("one")), files(&w.join("split")));
+    let (one, split) = (files(&w.join("one")), files(&w.join(SPLIT)));
     assert_eq!(one, split, "the same files");
     assert!(one.len() > 20, "{one:?}");
     for f in &one {
@@ -209,11 +221,11 @@ fn submitted_run_equals_report(c: &Cluster, w: &Path) {
         }
         let (a, b) = (
             std::fs::read(w.join("one").join(f)).unwrap(),
-            std::fs::read(w.join("split").join(f)).unwrap(),
+            std::fs::read(w.join(SPLIT).join(f)).unwrap(),
         );
         assert!(a == b, "{} differs between report and batch", f.display());
     }
-    let run = common::read_json(&w.join("split/run.json"));
+    let run = common::read_json(&w.join(SPLIT).join("run.json"));
     let steps: Vec<&str> = run["timings"]
         .as_array()
         .unwrap()
