@@ -275,3 +275,42 @@ pub fn write_folders<A: WritableElement + Clone>(
         }
     }
 }
+
+/// Whether this is a CI run (`CI` set and not `false`/`0`, as CI services set it).
+pub fn under_ci() -> bool {
+    std::env::var("CI").is_ok_and(|v| !v.is_empty() && v != "false" && v != "0")
+}
+
+/// Chromium for a browser test: the path in VOXSTRATA_CHROMIUM (which must exist), else
+/// Debian's `chromium` (or `chromium-browser`, `google-chrome`) in /usr/bin or on PATH. None
+/// only when no browser can be found; then the test says why on stderr and skips. Under CI
+/// (.ci/run installs Chromium) a missing browser fails instead.
+pub fn find_chromium(test: &str) -> Option<PathBuf> {
+    if let Some(p) = std::env::var_os("VOXSTRATA_CHROMIUM") {
+        let p = PathBuf::from(p);
+        assert!(
+            p.is_file(),
+            "{test}: VOXSTRATA_CHROMIUM={} is not a file",
+            p.display()
+        );
+        return Some(p);
+    }
+    let names = ["chromium", "chromium-browser", "google-chrome"];
+    let mut dirs = vec![PathBuf::from("/usr/bin")];
+    if let Some(path) = std::env::var_os("PATH") {
+        dirs.extend(std::env::split_paths(&path));
+    }
+    let found = dirs
+        .iter()
+        .flat_map(|d| names.iter().map(move |n| d.join(n)))
+        .find(|p| p.is_file());
+    if found.is_none() {
+        let why = format!("no Chromium: none of {names:?} in /usr/bin or on PATH, and VOXSTRATA_CHROMIUM is unset");
+        assert!(
+            !under_ci(),
+            "{test}: {why}; under CI the browser tests must run"
+        );
+        eprintln!("{test}: SKIPPED: {why}");
+    }
+    found
+}

@@ -11,7 +11,7 @@ use sha2::{Digest, Sha256};
 use super::ReportError;
 use crate::capture::{Capture, UNLABELLED};
 use crate::records::run::FileHash;
-use crate::render::page::{FrameInfo, LabelColumn};
+use crate::render::page::{FrameInfo, LabelColumn, ValueColumn};
 use crate::Progress;
 
 /// Labels, utterance and centre time of the given frames of a capture, for the explorer.
@@ -78,11 +78,20 @@ pub fn frame_info(cap: &Capture, frames: &[u64]) -> Result<FrameInfo, ReportErro
             }
         })
         .collect();
+    let values = ft
+        .continuous
+        .iter()
+        .map(|t| ValueColumn {
+            name: t.name.clone(),
+            values: frames.iter().map(|&f| t.values[f as usize]).collect(),
+        })
+        .collect();
     Ok(FrameInfo {
         utterances,
         utt,
         time_s,
         columns,
+        values,
     })
 }
 

@@ -1,7 +1,9 @@
 /* voxstrata layer-map explorer: a canvas scatter of one layer's 2-D map at a time.
    Data (JSON in #vx-data): per capture, per layer the coordinates quantised to u16 per axis
    (little-endian x,y pairs in base64, with each axis's range), label columns as integer
-   codes (-1: unlabelled) with name and colour tables, utterance codes and frame times.
+   codes (-1: unlabelled) with name and colour tables, continuous columns (kind "continuous")
+   as values (null: none) with their colour range (1st-99th percentile) and value-ramp
+   colours, utterance codes and frame times.
    Hover uses a grid index of screen positions; no library, no network. */
 (function () {
   "use strict";
@@ -64,6 +66,29 @@
     st.cssW = w; st.cssH = h;
   }
 
+  function isValues(col) { return !!col && col.kind === "continuous"; }
+
+  /* The ramp colour of value v on the column's range (ends clamped). */
+  function rampColour(col, v) {
+    var t = (v - col.lo) / ((col.hi - col.lo) || 1);
+    t = Math.max(0, Math.min(1, t));
+    return col.ramp[Math.round(t * (col.ramp.length - 1))];
+  }
+
+  /* The fill of point i when coloured by col: its class colour or its value's ramp colour;
+     grey when unlabelled or without a value. */
+  function fillOf(col, i) {
+    if (!col) return data.other;
+    if (isValues(col)) return col.values[i] === null ? data.other : rampColour(col, col.values[i]);
+    return col.codes[i] < 0 ? data.other : col.colours[col.codes[i]];
+  }
+
+  function fmtValue(v) {
+    if (v === null || v === undefined) return "(no value)";
+    var a = Math.abs(v);
+    return (a !== 0 && (a >= 1e5 || a < 1e-3)) ? v.toExponential(3) : String(Number(v.toPrecision(4)));
+  }
+
   function draw() {
     var set = data.sets[st.set], L = set.layers[st.layer], n = set.n;
     size();
@@ -77,16 +102,20 @@
     ctx.fillStyle = "#ffffff";
     ctx.fillRect(0, 0, W, H);
     var r = n > 20000 ? 1.3 : n > 6000 ? 1.9 : n > 1500 ? 2.5 : 3.4;
-    var ord = order(st.set), hl = st.highlight, codes = col ? col.codes : null;
-    /* Pass 0: everything not highlighted; pass 1: the highlighted label on top. */
+    var ord = order(st.set), hl = st.highlight, vals = isValues(col) ? col.values : null;
+    var codes = col && !vals ? col.codes : null;
+    /* Pass 0: everything not highlighted; pass 1: the highlighted label on top. A value
+       column draws its frames without a value first, so the grey lies under the values. */
+    var under = !!vals && hl < 0;
     for (var pass = 0; pass < 2; pass++) {
-      if (pass === 1 && hl < 0) break;
+      if (pass === 1 && hl < 0 && !under) break;
       for (var k = 0; k < n; k++) {
         i = ord[k];
-        var code = codes ? codes[i] : -1;
-        if ((pass === 1) !== (hl >= 0 && code === hl)) continue;
+        var code = vals ? (vals[i] === null ? -1 : 0) : (codes ? codes[i] : -1);
+        var top = under ? code >= 0 : (hl >= 0 && code === hl);
+        if ((pass === 1) !== top) continue;
         ctx.globalAlpha = hl < 0 ? (code < 0 ? 0.55 : 0.85) : (pass === 1 ? 1 : 0.13);
-        ctx.fillStyle = code < 0 ? data.other : col.colours[code];
+        ctx.fillStyle = fillOf(col, i);
         ctx.beginPath();
         ctx.arc(px[i], py[i], r, 0, 6.283185307);
         ctx.fill();
@@ -158,6 +187,7 @@
       return rank(a) - rank(b);
     });
     cols.forEach(function (c) {
+      if (isValues(c)) { tip.appendChild(line(c.name, fmtValue(c.values[i]))); return; }
       var k = c.codes[i];
       tip.appendChild(line(c.name, k < 0 ? "(unlabelled)" : c.classes[k]));
     });
@@ -177,6 +207,7 @@
     var set = data.sets[st.set], col = set.columns[st.column];
     legend.textContent = "";
     if (!col) return;
+    if (isValues(col)) { colourBar(col); return; }
     var counts = new Array(col.classes.length).fill(0), unl = 0;
     col.codes.forEach(function (k) { if (k < 0) unl++; else counts[k]++; });
     col.classes.forEach(function (name, k) {
@@ -203,6 +234,28 @@
       legend.appendChild(u);
     }
     markLegend();
+  }
+
+  /* A continuous column's legend: the ramp as a bar between its range's ends, and the count
+     of frames without a value (drawn grey). */
+  function colourBar(col) {
+    var stops = col.ramp.map(function (c, k) { return c + " " + (100 * k / (col.ramp.length - 1)).toFixed(1) + "%"; });
+    var wrap = document.createElement("div");
+    wrap.className = "vx-bar";
+    wrap.style.cssText = "display:flex;align-items:center;gap:6px;font-size:12.5px";
+    var lo = document.createElement("span"), hi = document.createElement("span"), bar = document.createElement("span");
+    lo.className = "vx-lo"; hi.className = "vx-hi";
+    lo.textContent = fmtValue(col.lo);
+    hi.textContent = fmtValue(col.hi);
+    bar.style.cssText = "display:inline-block;width:220px;height:12px;border:1px solid #d0d7de;border-radius:2px;background:linear-gradient(to right," + stops.join(",") + ")";
+    wrap.appendChild(lo); wrap.appendChild(bar); wrap.appendChild(hi);
+    legend.appendChild(wrap);
+    var none = col.values.filter(function (v) { return v === null; }).length;
+    var h = document.createElement("span");
+    h.className = "hint";
+    h.textContent = col.name + ", 1st to 99th percentile (values outside take the end colours)" +
+      (none > 0 ? "; grey: no value (" + none + ")" : "");
+    legend.appendChild(h);
   }
 
   function markLegend() {
@@ -299,6 +352,7 @@
   window.voxstrataExplorer = {
     state: st,
     setLayer: setLayer,
+    colourOf: function (i) { return fillOf(data.sets[st.set].columns[st.column], i); },
     pointClient: function (i) {
       var rect = canvas.getBoundingClientRect();
       return { x: rect.left + st.px[i] * rect.width / st.cssW, y: rect.top + st.py[i] * rect.height / st.cssH };

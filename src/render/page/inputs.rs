@@ -49,6 +49,18 @@ pub struct FrameInfo {
     pub time_s: Vec<f64>,
     /// Label tasks (phone and any other columns, speaker last).
     pub columns: Vec<LabelColumn>,
+    /// Continuous columns (pitch, energy, ...).
+    pub values: Vec<ValueColumn>,
+}
+
+/// A continuous column for the sampled frames of a map: one value per frame, NaN where the
+/// frame has none.
+#[derive(Clone, Debug)]
+pub struct ValueColumn {
+    /// Column name.
+    pub name: String,
+    /// One value per sampled frame.
+    pub values: Vec<f32>,
 }
 
 /// The 2-D maps of one capture: one embedding per layer over the same sampled frames.

@@ -297,7 +297,7 @@ fn maps_html(o: &mut String, inp: &ReportInputs, has_maps: bool) {
 <label>colour by <select id=\"vx-colour\"></select></label></div>\
 <div class=\"stage\"><canvas id=\"vx-canvas\" width=\"900\" height=\"600\" aria-label=\"map of the selected layer\"></canvas><div id=\"vx-tip\" class=\"tip\" hidden></div></div>\
 <div id=\"vx-legend\" class=\"legend\"></div>\
-<p class=\"hint\">Slider or ← → keys: move between layers. Hover a point: its utterance, time, speaker and phone. Click a legend entry: highlight that label (click again to clear).</p></div>",
+<p class=\"hint\">Slider or ← → keys: move between layers. Hover a point: its utterance, time, labels and values. Click a legend entry: highlight that label (click again to clear). Numeric columns are coloured on a value ramp over their 1st–99th percentiles; grey: no value.</p></div>",
         );
     } else {
         o.push_str("<p class=\"missing\">No layer maps were available in this run.</p>");
