@@ -140,7 +140,7 @@ fn r2_matches_the_known_share_of_explained_variance() {
         header.contains("accuracy") && !header.contains(",r2,"),
         "{header}"
     );
-    assert!(cat.lines().skip(1).all(|l| l.contains(",categorical,")));
+    assert!(cat.lines().skip(1).all(|l| l.ends_with(",categorical")));
     let cont = std::fs::read_to_string(out.join("probe_continuous.csv")).unwrap();
     let header = cont.lines().next().unwrap();
     assert!(

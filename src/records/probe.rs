@@ -18,9 +18,6 @@ pub struct ProbeRecord {
     pub layer: usize,
     /// Label task.
     pub task: String,
-    /// `categorical` (classifier) or `continuous` (ridge regression).
-    #[serde(default = "categorical")]
-    pub kind: String,
     /// Pooling.
     pub pooling: String,
     /// Split kind actually used.
@@ -81,6 +78,9 @@ pub struct ProbeRecord {
     /// mdl_uniform_bits / mdl_online_bits (NaN when not computed).
     #[serde(deserialize_with = "super::nan::f64")]
     pub mdl_compression: f64,
+    /// `categorical` (classifier) or `continuous` (ridge regression).
+    #[serde(default = "categorical")]
+    pub kind: String,
     /// Continuous task: held-out R² (`1 − SS_res/SS_tot`) over every test item, pooled across
     /// folds (NaN for a categorical task).
     #[serde(default = "nan", deserialize_with = "super::nan::f64")]
@@ -131,7 +131,6 @@ pub const CONTINUOUS_ONLY: [&str; 7] = [
 pub const CONTINUOUS_COLUMNS: [&str; 19] = [
     "layer",
     "task",
-    "kind",
     "pooling",
     "split",
     "n_train",
@@ -141,6 +140,7 @@ pub const CONTINUOUS_COLUMNS: [&str; 19] = [
     "selectivity",
     "control_by",
     "folds",
+    "kind",
     "r2",
     "rmse",
     "pearson_r",
