@@ -127,7 +127,9 @@ pub(super) fn summary_table(out: &mut String, secs: &[CaptureSection]) {
 fn num(v: f64) -> String {
     if !v.is_finite() {
         "—".into()
-    } else if v != 0.0 && (v.abs() >= 1e5 || v.abs() < 1e-3) {
+    } else if v == 0.0 {
+        "0".into()
+    } else if v.abs() >= 1e5 || v.abs() < 1e-3 {
         format!("{v:.3e}")
     } else {
         let digits = (3 - v.abs().log10().floor() as i32).clamp(0, 6) as usize;
@@ -267,3 +269,15 @@ pub(super) const PURITY_HEAD: [&str; 11] = [
     "variance ratio",
     "share inside phones",
 ];
+
+#[cfg(test)]
+mod num_tests {
+    #[test]
+    fn values_keep_four_significant_digits() {
+        assert_eq!(super::num(0.0), "0");
+        assert_eq!(super::num(123.456), "123.5");
+        assert_eq!(super::num(-0.5), "-0.5000");
+        assert_eq!(super::num(2e-5), "2.000e-5");
+        assert_eq!(super::num(f64::NAN), "—");
+    }
+}
