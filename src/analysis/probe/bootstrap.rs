@@ -88,9 +88,9 @@ fn r2_sums<const K: usize>(truth: &[f64], preds: [&[f64]; K], cluster: &[u32]) -
         s.n += 1.0;
         s.sy += y;
         s.syy += y * y;
-        for k in 0..K {
-            let e = t - preds[k][i];
-            s.sse[k] += e * e;
+        for (sse, pred) in s.sse.iter_mut().zip(&preds) {
+            let e = t - pred[i];
+            *sse += e * e;
         }
     }
     out
