@@ -154,10 +154,6 @@ pub struct ProbeDelta {
     pub layer: usize,
     /// Label task.
     pub task: String,
-    /// `categorical` (accuracies, McNemar) or `continuous` (R², `accuracy_*` NaN, McNemar
-    /// `not_applicable`); the intervals and `delta` are of the task's score.
-    #[serde(default = "categorical")]
-    pub kind: String,
     /// Training rows.
     pub n_train: usize,
     /// Test rows.
@@ -198,6 +194,10 @@ pub struct ProbeDelta {
     pub b: u64,
     /// Test rows right on B only.
     pub c: u64,
+    /// `categorical` (accuracies, McNemar) or `continuous` (R², `accuracy_*` NaN, McNemar
+    /// `not_applicable`); the intervals and `delta` are of the task's score.
+    #[serde(default = "categorical")]
+    pub kind: String,
     /// Continuous task: held-out R² of the ridge on A (NaN for a categorical task).
     #[serde(default = "nan", deserialize_with = "super::nan::f64")]
     pub r2_a: f64,
