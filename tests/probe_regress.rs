@@ -258,3 +258,28 @@ fn fewer_than_three_training_values_are_refused_naming_the_task() {
     ]);
     assert_eq!(r.code, 0, "{}", r.stderr);
 }
+
+#[test]
+fn a_split_by_frame_is_noted_as_overstating_r2() {
+    let t = tempfile::tempdir().unwrap();
+    let cap = t.path().join("cap");
+    linear_capture(&cap, true);
+    let out = t.path().join("out");
+    let r = run_text([
+        "probe",
+        common::s(&cap),
+        "--out",
+        common::s(&out),
+        "--quiet",
+        "--task",
+        "y",
+        "--layers",
+        "0",
+        "--split",
+        "frame",
+    ]);
+    assert_eq!(r.code, 0, "{}", r.stderr);
+    let notes = read_json(&out.join("probe.json"))["notes"].to_string();
+    assert!(notes.contains("task 'y' is split by frame"), "{notes}");
+    assert!(notes.contains("its R² is overstated"), "{notes}");
+}

@@ -486,7 +486,7 @@ pub(super) fn capped_folds(
 
 /// Warn that a split by frame overstates accuracy: neighbouring frames of one utterance, which
 /// are nearly alike, and the same speakers sit on both sides.
-pub(super) fn note_frame_split(kind: SplitKind, name: &str, notes: &mut Vec<String>) {
+fn note_frame_split(kind: SplitKind, name: &str, notes: &mut Vec<String>) {
     if kind == SplitKind::Frame {
         notes.push(format!(
             "task '{name}' is split by frame: neighbouring frames of one utterance land on both \

@@ -22,9 +22,7 @@ use crate::records::probe::{BestFit, ProbeRecord, TaskPredictions, TaskSetup};
 use crate::select::pool::{self, Items, UttIndex};
 use crate::select::split::{self, Fold, SplitKind, SplitOptions};
 
-use super::plan::{
-    capped_folds, check_two_speakers, fold_sides, group_word, note_frame_split, note_test_cap,
-};
+use super::plan::{capped_folds, check_two_speakers, fold_sides, group_word, note_test_cap};
 use super::{bootstrap, control, ridge, LayerRows, ProbeError, ProbeOptions};
 
 /// A continuous task ready to run: items with their values, and folds.
@@ -101,7 +99,13 @@ pub(super) fn plan_task(
     .map_err(|m| input(format!("{}: task '{name}': {m}", cap.dir.display())))?;
     let folds = capped_folds(&sp, &items, opts, ti, seed);
     check_training_values(cap, name, &folds, &value)?;
-    note_frame_split(sp.kind, name, notes);
+    if sp.kind == SplitKind::Frame {
+        notes.push(format!(
+            "task '{name}' is split by frame: neighbouring frames of one utterance land on both \
+             sides, so its R² is overstated; use --split auto (speaker-disjoint) for a score \
+             that holds on unseen speech"
+        ));
+    }
     note_test_cap(&sp, &folds, name, opts, notes);
     let check = split::check_leakage(
         sp.kind,
