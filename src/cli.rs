@@ -53,7 +53,7 @@ struct CaptureArgs {
 
 #[derive(Args, Debug, Clone)]
 struct ProbeArgs {
-    /// Label task to probe (repeatable; default: phone and speaker).
+    /// Label task to probe (repeatable; default: phone, speaker and every continuous column).
     #[arg(long = "task", value_name = "COLUMN")]
     tasks: Vec<String>,
     /// Pooling of frames into items: frame, segment or utterance.
@@ -124,7 +124,8 @@ struct CompareArgs {
     /// Frames per minibatch for --hsic minibatch.
     #[arg(long = "batch-size", default_value_t = 512)]
     batch_size: usize,
-    /// Label task for probe deltas (repeatable; default: phone and speaker).
+    /// Label task for probe deltas (repeatable; default: phone, speaker and every continuous
+    /// column).
     #[arg(long = "task", value_name = "COLUMN")]
     tasks: Vec<String>,
     /// Skip the probe deltas (CKA only).

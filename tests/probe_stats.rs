@@ -339,10 +339,31 @@ fn accuracies(probe_json: &Path) -> Vec<(u64, String, f64)> {
             (
                 r["layer"].as_u64().unwrap(),
                 r["task"].as_str().unwrap().to_string(),
-                r["accuracy"].as_f64().unwrap(),
+                // The score: accuracy, or R² for a continuous task (whose accuracy is null).
+                r["accuracy"].as_f64().or(r["r2"].as_f64()).unwrap(),
             )
         })
         .collect()
+}
+
+/// Add a continuous column `pos` (each frame's place in its utterance, 36 values) to the
+/// capture in `dir`.
+fn add_position_column(dir: &Path) {
+    let p = dir.join("frames.tsv");
+    let text = std::fs::read_to_string(&p).unwrap();
+    let mut out = String::new();
+    let (mut utt, mut pos) = (String::new(), 0usize);
+    for (i, line) in text.lines().enumerate() {
+        if i == 0 {
+            out.push_str(&format!("{line}\tpos\n"));
+            continue;
+        }
+        let u = line.split('\t').next().unwrap().to_string();
+        pos = if u == utt { pos + 1 } else { 0 };
+        utt = u;
+        out.push_str(&format!("{line}\t{pos}\n"));
+    }
+    std::fs::write(&p, out).unwrap();
 }
 
 /// Check that every probe delta of `compare_json` shows, for A and for B, exactly the accuracy
@@ -358,8 +379,15 @@ fn deltas_match(compare_json: &Path, a: &[(u64, String, f64)], b: &[(u64, String
                 .unwrap_or_else(|| panic!("no probe record for {key:?}"))
                 .2
         };
-        assert_eq!(d["accuracy_a"].as_f64().unwrap(), find(a), "{d}");
-        assert_eq!(d["accuracy_b"].as_f64().unwrap(), find(b), "{d}");
+        // A continuous task's delta is of R² and McNemar's test does not apply to it.
+        let (sa, sb) = if d["kind"] == "continuous" {
+            assert_eq!(d["mcnemar_method"], "not_applicable", "{d}");
+            (d["r2_a"].as_f64(), d["r2_b"].as_f64())
+        } else {
+            (d["accuracy_a"].as_f64(), d["accuracy_b"].as_f64())
+        };
+        assert_eq!(sa.unwrap(), find(a), "{d}");
+        assert_eq!(sb.unwrap(), find(b), "{d}");
     }
     deltas.len()
 }
@@ -372,6 +400,9 @@ fn one_split_for_the_whole_run() {
     let (a, b) = (tmp.path().join("capA"), tmp.path().join("capB"));
     typed_capture_with_noise(&a, 6, 0.1);
     typed_capture_with_noise(&b, 6, 3.0);
+    // A continuous column too: its ΔR² must pair the probe stage's own predictions as well.
+    add_position_column(&a);
+    add_position_column(&b);
     let rep = tmp.path().join("rep");
     let Ran { code, stderr, .. } = run_text([
         "report",
@@ -391,7 +422,7 @@ fn one_split_for_the_whole_run() {
     );
     // The captures differ, so a delta that matched by accident would show.
     assert!(pa.iter().zip(&pb).any(|(x, y)| x.2 != y.2));
-    assert_eq!(deltas_match(&rep.join("compare.json"), &pa, &pb), 2 * 2);
+    assert_eq!(deltas_match(&rep.join("compare.json"), &pa, &pb), 2 * 3);
     // compare alone and probe alone agree too.
     let (cmp, pra, prb) = (
         tmp.path().join("cmp"),
@@ -417,5 +448,5 @@ fn one_split_for_the_whole_run() {
         accuracies(&prb.join("probe.json")),
     );
     assert_eq!(pa1, pa);
-    assert_eq!(deltas_match(&cmp.join("compare.json"), &pa1, &pb1), 2 * 2);
+    assert_eq!(deltas_match(&cmp.join("compare.json"), &pa1, &pb1), 2 * 3);
 }

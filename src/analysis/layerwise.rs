@@ -42,7 +42,7 @@ pub fn merge_probe(parts: Vec<ProbeReport>) -> Result<ProbeReport, ProbeError> {
     }
     let mut confusion = Vec::new();
     let mut best = Vec::new();
-    for t in &tasks {
+    for t in tasks.iter().filter(|t| t.kind != "continuous") {
         let Some(br) = best_record(&records, &t.task) else {
             continue;
         };
@@ -67,6 +67,7 @@ pub fn merge_probe(parts: Vec<ProbeReport>) -> Result<ProbeReport, ProbeError> {
     }
     let (speaker_below_half_layer, speaker_half_level) =
         crate::analysis::probe::speaker_fall(&records);
+    let best_r2 = crate::analysis::probe::regress::best_fits(&records, &tasks);
     Ok(ProbeReport {
         capture,
         options,
@@ -74,6 +75,7 @@ pub fn merge_probe(parts: Vec<ProbeReport>) -> Result<ProbeReport, ProbeError> {
         tasks,
         confusion,
         summary: ProbeSummary {
+            best_r2,
             best,
             speaker_below_half_layer,
             speaker_half_level,

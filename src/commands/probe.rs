@@ -1,5 +1,6 @@
-//! `voxstrata probe`: linear probes per layer and task; writes `probe.json`/`.csv`, the
-//! accuracy figure and the confusion matrices at each task's best layer.
+//! `voxstrata probe`: linear probes per layer and task; writes `probe.json`, `probe.csv`
+//! (categorical tasks), `probe_continuous.csv` (continuous tasks), the score figure and the
+//! confusion matrices at each task's best layer.
 
 use std::path::{Path, PathBuf};
 
@@ -56,17 +57,19 @@ pub fn write(r: &ProbeReport, dir: &Path) -> Result<Written, Error> {
     extra.insert("summary".into(), to_value(&r.summary)?);
     extra.insert("summary_text".into(), render::summary::probe(r).into());
     extra.insert("notes".into(), to_value(&r.notes)?);
+    let json = write::json::write_envelope(
+        dir,
+        "probe",
+        std::slice::from_ref(&r.capture),
+        r.options.clone(),
+        &r.records,
+        extra,
+    )?;
     let mut out = Written {
-        files: write::write_records(
-            dir,
-            "probe",
-            std::slice::from_ref(&r.capture),
-            r.options.clone(),
-            &r.records,
-            extra,
-        )?,
+        files: vec![json],
         ..Default::default()
     };
+    write_csvs(r, dir, &mut out)?;
     let curves = render::draw(&LayerCurves::new(r), "probe", "probe accuracy by layer")?;
     out.figure(dir, curves)?;
     if let Some(m) = render::mdl::MdlCurves::new(r) {
@@ -81,4 +84,31 @@ pub fn write(r: &ProbeReport, dir: &Path) -> Result<Written, Error> {
         out.figure(dir, render::draw(&ConfusionHeatmap::new(c), &stem, &title)?)?;
     }
     Ok(out)
+}
+
+/// `probe.csv` (categorical records, the accuracy columns; always written) and, when there
+/// are continuous tasks, `probe_continuous.csv` (their records, the regression columns).
+fn write_csvs(r: &ProbeReport, dir: &Path, out: &mut Written) -> Result<(), Error> {
+    use crate::records::probe::{CONTINUOUS_COLUMNS, CONTINUOUS_ONLY};
+    let mut csv = |name: &str, kind: &str, keep: &dyn Fn(&str) -> bool| -> Result<(), Error> {
+        let path = dir.join(name);
+        let bytes = write::csv::records_to_csv_where(&r.records, "kind", kind, keep).map_err(
+            |message| write::OutputError::Encode {
+                path: path.clone(),
+                message,
+            },
+        )?;
+        write::write_atomic(&path, &bytes)?;
+        out.files.push(path);
+        Ok(())
+    };
+    csv("probe.csv", "categorical", &|c| {
+        !CONTINUOUS_ONLY.contains(&c)
+    })?;
+    if r.records.iter().any(|x| x.is_continuous()) {
+        csv("probe_continuous.csv", "continuous", &|c| {
+            CONTINUOUS_COLUMNS.contains(&c)
+        })?;
+    }
+    Ok(())
 }

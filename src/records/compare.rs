@@ -194,6 +194,40 @@ pub struct ProbeDelta {
     pub b: u64,
     /// Test rows right on B only.
     pub c: u64,
+    /// `categorical` (accuracies, McNemar) or `continuous` (R², `accuracy_*` NaN, McNemar
+    /// `not_applicable`); the intervals and `delta` are of the task's score.
+    #[serde(default = "categorical")]
+    pub kind: String,
+    /// Continuous task: held-out R² of the ridge on A (NaN for a categorical task).
+    #[serde(default = "nan", deserialize_with = "super::nan::f64")]
+    pub r2_a: f64,
+    /// Continuous task: held-out R² on B.
+    #[serde(default = "nan", deserialize_with = "super::nan::f64")]
+    pub r2_b: f64,
+}
+
+fn categorical() -> String {
+    "categorical".into()
+}
+
+fn nan() -> f64 {
+    f64::NAN
+}
+
+impl ProbeDelta {
+    /// Whether the task is continuous (R², no McNemar).
+    pub fn is_continuous(&self) -> bool {
+        self.kind == "continuous"
+    }
+
+    /// The score on A and on B: accuracy, or R² for a continuous task.
+    pub fn scores(&self) -> (f64, f64) {
+        if self.is_continuous() {
+            (self.r2_a, self.r2_b)
+        } else {
+            (self.accuracy_a, self.accuracy_b)
+        }
+    }
 }
 
 /// Which form of McNemar's test produced a p-value.
@@ -205,4 +239,6 @@ pub enum McNemarMethod {
     Exact,
     /// Chi-square with 1 degree of freedom, no continuity correction.
     ChiSquare,
+    /// Not computed: a continuous task's predictions are not right or wrong.
+    NotApplicable,
 }

@@ -6,7 +6,12 @@ use serde::{Deserialize, Serialize};
 use super::CaptureRef;
 use crate::select::split::{LeakageCheck, SplitKind};
 
-/// One row of `probe.csv`: one layer × task.
+/// One layer × task. A categorical task (a classifier) fills the accuracy fields and leaves
+/// the regression fields NaN (`null` in JSON); a continuous task (a ridge regression, see
+/// [`crate::analysis::probe::regress`]) fills `r2` and the other regression fields, uses
+/// `ci_low`/`ci_high` for the interval of `r2` and `selectivity` for `r2 − control_r2`, and
+/// leaves the accuracy fields NaN (`n_classes` 0, `c` NaN). `probe.csv` holds the categorical
+/// records with their columns, `probe_continuous.csv` the continuous ones with theirs.
 #[derive(Clone, Debug, Serialize, Deserialize)]
 pub struct ProbeRecord {
     /// Layer number.
@@ -23,13 +28,14 @@ pub struct ProbeRecord {
     pub n_test: usize,
     /// Classes of the task after dropping unusable ones.
     pub n_classes: usize,
-    /// Held-out accuracy over every test item, pooled across folds (each item tested once).
+    /// Held-out accuracy over every test item, pooled across folds (each item tested once);
+    /// NaN for a continuous task.
     #[serde(deserialize_with = "super::nan::f64")]
     pub accuracy: f64,
-    /// 95 % cluster-bootstrap interval, low end.
+    /// 95 % cluster-bootstrap interval of `accuracy` (of `r2` for a continuous task), low end.
     #[serde(deserialize_with = "super::nan::f64")]
     pub ci_low: f64,
-    /// 95 % cluster-bootstrap interval, high end.
+    /// The same interval, high end.
     #[serde(deserialize_with = "super::nan::f64")]
     pub ci_high: f64,
     /// Macro-averaged F1 of the pooled test predictions.
@@ -44,7 +50,7 @@ pub struct ProbeRecord {
     /// Accuracy of the same probe on the control task, pooled (NaN when the control is off).
     #[serde(deserialize_with = "super::nan::f64")]
     pub control_accuracy: f64,
-    /// accuracy − control_accuracy.
+    /// accuracy − control_accuracy (r2 − control_r2 for a continuous task).
     #[serde(deserialize_with = "super::nan::f64")]
     pub selectivity: f64,
     /// What the control task's types are: `phone in context` (the default), `<task> in
@@ -72,6 +78,92 @@ pub struct ProbeRecord {
     /// mdl_uniform_bits / mdl_online_bits (NaN when not computed).
     #[serde(deserialize_with = "super::nan::f64")]
     pub mdl_compression: f64,
+    /// `categorical` (classifier) or `continuous` (ridge regression).
+    #[serde(default = "categorical")]
+    pub kind: String,
+    /// Continuous task: held-out R² (`1 − SS_res/SS_tot`) over every test item, pooled across
+    /// folds (NaN for a categorical task).
+    #[serde(default = "nan", deserialize_with = "super::nan::f64")]
+    pub r2: f64,
+    /// Continuous task: root mean squared error of the pooled test predictions, in the
+    /// column's units.
+    #[serde(default = "nan", deserialize_with = "super::nan::f64")]
+    pub rmse: f64,
+    /// Continuous task: Pearson's r between pooled test predictions and values.
+    #[serde(default = "nan", deserialize_with = "super::nan::f64")]
+    pub pearson_r: f64,
+    /// Continuous task: RMSE of predicting each fold's training mean, pooled.
+    #[serde(default = "nan", deserialize_with = "super::nan::f64")]
+    pub baseline_rmse: f64,
+    /// Continuous task: R² of the same ridge (same penalty, same split) on the control
+    /// values, pooled (NaN when the control is off).
+    #[serde(default = "nan", deserialize_with = "super::nan::f64")]
+    pub control_r2: f64,
+    /// Continuous task: chosen ridge penalty per item (median over folds; the penalty on the
+    /// standardised problem is this times the training items).
+    #[serde(default = "nan", deserialize_with = "super::nan::f64")]
+    pub alpha: f64,
+    /// Continuous task: standard deviation of R² over folds (NaN for one split).
+    #[serde(default = "nan", deserialize_with = "super::nan::f64")]
+    pub r2_sd: f64,
+}
+
+fn categorical() -> String {
+    "categorical".into()
+}
+
+fn nan() -> f64 {
+    f64::NAN
+}
+
+/// The `probe.json` fields only a continuous record fills (left out of `probe.csv`).
+pub const CONTINUOUS_ONLY: [&str; 7] = [
+    "r2",
+    "rmse",
+    "pearson_r",
+    "baseline_rmse",
+    "control_r2",
+    "alpha",
+    "r2_sd",
+];
+
+/// The columns of `probe_continuous.csv`, in the records' field order.
+pub const CONTINUOUS_COLUMNS: [&str; 19] = [
+    "layer",
+    "task",
+    "pooling",
+    "split",
+    "n_train",
+    "n_test",
+    "ci_low",
+    "ci_high",
+    "selectivity",
+    "control_by",
+    "folds",
+    "kind",
+    "r2",
+    "rmse",
+    "pearson_r",
+    "baseline_rmse",
+    "control_r2",
+    "alpha",
+    "r2_sd",
+];
+
+impl ProbeRecord {
+    /// Whether this is a regression record.
+    pub fn is_continuous(&self) -> bool {
+        self.kind == "continuous"
+    }
+
+    /// The headline score: accuracy, or R² for a continuous task.
+    pub fn score(&self) -> f64 {
+        if self.is_continuous() {
+            self.r2
+        } else {
+            self.accuracy
+        }
+    }
 }
 
 /// The test predictions behind one record, pooled over folds in fold order: what `compare`
@@ -90,6 +182,11 @@ pub struct TaskPredictions {
     pub cluster: Vec<u32>,
     /// Training items per fit (mean over folds).
     pub n_train: usize,
+    /// Continuous task: each test item's value (empty for a categorical task, whose outcome
+    /// is `correct`).
+    pub truth: Vec<f64>,
+    /// Continuous task: each test item's prediction.
+    pub pred: Vec<f64>,
 }
 
 /// The groups on each side of one fold.
@@ -111,7 +208,10 @@ pub struct FoldSides {
 pub struct TaskSetup {
     /// Task name.
     pub task: String,
-    /// Classes used, by code.
+    /// `categorical` or `continuous`.
+    #[serde(default = "categorical")]
+    pub kind: String,
+    /// Classes used, by code (empty for a continuous task).
     pub classes: Vec<String>,
     /// Classes left out (and why).
     pub dropped: Vec<String>,
@@ -162,11 +262,32 @@ pub struct BestLayer {
     pub ci_high: f64,
 }
 
+/// Best layer of one continuous task (the first with the highest R²).
+#[derive(Clone, Debug, Serialize, Deserialize)]
+pub struct BestFit {
+    /// Task.
+    pub task: String,
+    /// Layer number.
+    pub layer: usize,
+    /// R² there.
+    #[serde(deserialize_with = "super::nan::f64")]
+    pub r2: f64,
+    /// Interval low end.
+    #[serde(deserialize_with = "super::nan::f64")]
+    pub ci_low: f64,
+    /// Interval high end.
+    #[serde(deserialize_with = "super::nan::f64")]
+    pub ci_high: f64,
+}
+
 /// Short summary of a probe run.
 #[derive(Clone, Debug, Serialize, Deserialize)]
 pub struct ProbeSummary {
-    /// Best layer per task.
+    /// Best layer per categorical task.
     pub best: Vec<BestLayer>,
+    /// Best layer per continuous task (by R²).
+    #[serde(default)]
+    pub best_r2: Vec<BestFit>,
     /// First layer after the speaker peak whose speaker accuracy falls below midway between
     /// its maximum and minimum (None when there is no speaker task or it never falls).
     pub speaker_below_half_layer: Option<usize>,

@@ -419,17 +419,34 @@ impl ProbeCurves {
         // A margin so end points are not clipped by the frame.
         let pad = ((hi - lo) * 0.03).max(0.3);
         let (lo, hi) = (lo - pad, hi + pad);
+        // A continuous task's panel shows R², from 0 (or its lowest value, not below −1).
+        let continuous = ds.iter().any(|d| d.is_continuous());
+        let y0 = if continuous {
+            let low = ds
+                .iter()
+                .flat_map(|d| [d.ci_low_a, d.ci_low_b, d.scores().0, d.scores().1])
+                .filter(|v| v.is_finite())
+                .fold(0.0f64, f64::min);
+            ((low * 10.0).floor() / 10.0).max(-1.0)
+        } else {
+            0.0
+        };
+        let (what, y_desc) = if continuous {
+            ("R² (continuous column)", "test R²")
+        } else {
+            ("accuracy", "test accuracy")
+        };
         let mut chart = ChartBuilder::on(panel)
-            .caption(format!("{task} probe accuracy"), text(16.0))
+            .caption(format!("{task} probe {what}"), text(16.0))
             .margin(12)
             .x_label_area_size(40)
             .y_label_area_size(52)
-            .build_cartesian_2d(lo..hi, 0f64..1.02)
+            .build_cartesian_2d(lo..hi, y0..1.02)
             .map_err(e2s)?;
         chart
             .configure_mesh()
             .x_desc("layer")
-            .y_desc("test accuracy")
+            .y_desc(y_desc)
             .x_label_formatter(&|v| {
                 if (v - v.round()).abs() < 1e-9 {
                     format!("{}", v.round())
@@ -447,8 +464,8 @@ impl ProbeCurves {
             .map_err(e2s)?;
         type Getter = fn(&ProbeDelta) -> (f64, f64, f64);
         let sides: [(&str, Getter); 2] = [
-            (&self.names.0, |d| (d.accuracy_a, d.ci_low_a, d.ci_high_a)),
-            (&self.names.1, |d| (d.accuracy_b, d.ci_low_b, d.ci_high_b)),
+            (&self.names.0, |d| (d.scores().0, d.ci_low_a, d.ci_high_a)),
+            (&self.names.1, |d| (d.scores().1, d.ci_low_b, d.ci_high_b)),
         ];
         for (s, (name, get)) in sides.iter().enumerate() {
             let c = colours[s];
@@ -524,6 +541,9 @@ mod tests {
             mcnemar_method: crate::records::compare::McNemarMethod::ChiSquare,
             b: 3,
             c: 20,
+            kind: "categorical".into(),
+            r2_a: f64::NAN,
+            r2_b: f64::NAN,
         }
     }
 

@@ -1,5 +1,6 @@
 //! Probe pictures: accuracy across layers (one curve per task, the bootstrap interval as a
-//! band, majority baseline dashed and control task dotted in the task's colour), and a
+//! band, majority baseline dashed and control task dotted in the task's colour), with R² of
+//! continuous tasks on a panel of its own (training-mean baseline dashed), and a
 //! row-normalised confusion heatmap per task at its best layer.
 
 use plotters::coord::types::RangedCoordf64;
@@ -22,97 +23,207 @@ struct TaskCurves {
     control: Vec<f64>,
 }
 
-/// Accuracy across layers for every task.
+/// Scores across layers for every task: accuracy of the categorical tasks on one panel, R²
+/// of the continuous tasks on a panel of their own below it (never on the accuracy axis).
 pub struct LayerCurves {
     title: String,
     tasks: Vec<TaskCurves>,
+    continuous: Vec<TaskCurves>,
+}
+
+/// R² of predicting the training mean, from a record's RMSEs and R² (SS_tot/n =
+/// RMSE²/(1 − R²), so the baseline's R² is 1 − baseline RMSE²·(1 − R²)/RMSE²).
+fn baseline_r2(x: &crate::records::probe::ProbeRecord) -> f64 {
+    if x.rmse > 0.0 && x.r2 < 1.0 {
+        1.0 - x.baseline_rmse * x.baseline_rmse * (1.0 - x.r2) / (x.rmse * x.rmse)
+    } else {
+        f64::NAN
+    }
 }
 
 impl LayerCurves {
     /// Curves from a probe report.
     pub fn new(r: &ProbeReport) -> LayerCurves {
         let mut tasks: Vec<TaskCurves> = Vec::new();
+        let mut continuous: Vec<TaskCurves> = Vec::new();
         for t in &r.tasks {
             let rows: Vec<_> = r.records.iter().filter(|x| x.task == t.task).collect();
-            tasks.push(TaskCurves {
-                name: format!(
-                    "{} ({}, {}-disjoint)",
-                    t.task,
-                    rows.first().map(|x| x.pooling.as_str()).unwrap_or(""),
-                    t.split.name()
-                ),
+            let is_cont = t.kind == "continuous";
+            let name = format!(
+                "{} ({}, {}-disjoint)",
+                t.task,
+                rows.first().map(|x| x.pooling.as_str()).unwrap_or(""),
+                t.split.name()
+            );
+            let c = TaskCurves {
+                name,
                 layers: rows.iter().map(|x| x.layer as f64).collect(),
-                acc: rows.iter().map(|x| x.accuracy).collect(),
+                acc: rows.iter().map(|x| x.score()).collect(),
                 lo: rows.iter().map(|x| x.ci_low).collect(),
                 hi: rows.iter().map(|x| x.ci_high).collect(),
-                majority: rows.iter().map(|x| x.majority_baseline).collect(),
-                control: rows.iter().map(|x| x.control_accuracy).collect(),
-            });
+                majority: rows
+                    .iter()
+                    .map(|x| {
+                        if is_cont {
+                            baseline_r2(x)
+                        } else {
+                            x.majority_baseline
+                        }
+                    })
+                    .collect(),
+                control: rows
+                    .iter()
+                    .map(|x| {
+                        if is_cont {
+                            x.control_r2
+                        } else {
+                            x.control_accuracy
+                        }
+                    })
+                    .collect(),
+            };
+            if is_cont {
+                continuous.push(c);
+            } else {
+                tasks.push(c);
+            }
         }
         LayerCurves {
-            title: format!("Probe accuracy by layer: {}", r.capture.name),
+            title: format!("Probe scores by layer: {}", r.capture.name),
             tasks,
+            continuous,
         }
     }
+
+    fn panels(&self) -> usize {
+        usize::from(!self.tasks.is_empty()) + usize::from(!self.continuous.is_empty())
+    }
+}
+
+/// The x range (with padding) and the number of layers.
+fn layer_range(tasks: &[&TaskCurves]) -> (f64, f64, usize) {
+    let (x0, x1) = tasks
+        .iter()
+        .flat_map(|t| t.layers.iter().copied())
+        .fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), v| {
+            (a.min(v), b.max(v))
+        });
+    let (x0, x1) = if x0.is_finite() {
+        (x0, x1.max(x0 + 1.0))
+    } else {
+        (0.0, 1.0)
+    };
+    let pad = 0.15 * (x1 - x0).max(1.0) / 4.0;
+    (x0 - pad, x1 + pad, (x1 - x0).round() as usize + 1)
+}
+
+/// The R² axis: from 0 (or the lowest value shown, floored to a tenth, but not below −1) to 1.
+fn r2_range(tasks: &[TaskCurves]) -> (f64, f64) {
+    let low = tasks
+        .iter()
+        .flat_map(|t| {
+            t.lo.iter()
+                .chain(&t.acc)
+                .chain(&t.control)
+                .chain(&t.majority)
+        })
+        .copied()
+        .filter(|v| v.is_finite())
+        .fold(0.0f64, f64::min);
+    (((low * 10.0).floor() / 10.0).max(-1.0), 1.0)
+}
+
+/// One panel: `tasks` on an axis `y0..y1` described as `y_desc`.
+#[allow(clippy::too_many_arguments)]
+fn draw_panel<DB: DrawingBackend>(
+    area: &DrawingArea<DB, Shift>,
+    caption: &str,
+    y_desc: &str,
+    (y0, y1): (f64, f64),
+    x: (f64, f64, usize),
+    tasks: &[TaskCurves],
+    colours: &[RGBColor],
+) -> Result<(), String> {
+    let mut chart = ChartBuilder::on(area)
+        .caption(caption, text(20.0))
+        .margin(14)
+        .x_label_area_size(46)
+        .y_label_area_size(58)
+        .build_cartesian_2d(x.0..x.1, y0..y1)
+        .map_err(e2s)?;
+    chart
+        .configure_mesh()
+        .x_desc("layer")
+        .y_desc(y_desc)
+        .x_labels(x.2.min(16) + 1)
+        .y_labels(11)
+        .x_label_formatter(&|x| {
+            if (x - x.round()).abs() < 1e-6 {
+                format!("{}", x.round() as i64)
+            } else {
+                String::new()
+            }
+        })
+        .y_label_formatter(&|y| format!("{y:.1}"))
+        .label_style(text(13.0))
+        .axis_desc_style(text(15.0))
+        .light_line_style(RGBColor(235, 235, 235))
+        .bold_line_style(RGBColor(215, 215, 215))
+        .draw()
+        .map_err(e2s)?;
+    for (t, &col) in tasks.iter().zip(colours) {
+        draw_task(&mut chart, t, col, (y0, y1))?;
+    }
+    Ok(())
 }
 
 impl super::Figure for LayerCurves {
     fn size(&self) -> (u32, u32) {
-        (1100, 560)
+        (1100, if self.panels() > 1 { 1000 } else { 560 })
     }
 
     fn draw<DB: DrawingBackend>(&self, area: &DrawingArea<DB, Shift>) -> Result<(), String> {
-        let all: Vec<f64> = self
-            .tasks
-            .iter()
-            .flat_map(|t| t.layers.iter().copied())
-            .collect();
-        let (x0, x1) = all
-            .iter()
-            .fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), &v| {
-                (a.min(v), b.max(v))
-            });
-        let (x0, x1) = if x0.is_finite() {
-            (x0, x1.max(x0 + 1.0))
-        } else {
-            (0.0, 1.0)
-        };
-        let pad = 0.15 * (x1 - x0).max(1.0) / 4.0;
-        let n_layers = (x1 - x0).round() as usize + 1;
-        let (w, _) = self.size();
+        let every: Vec<&TaskCurves> = self.tasks.iter().chain(&self.continuous).collect();
+        let x = layer_range(&every);
+        let (w, h) = self.size();
         let (plot_area, legend_area) = area.split_horizontally(w as i32 - 300);
-        let mut chart = ChartBuilder::on(&plot_area)
-            .caption(&self.title, text(20.0))
-            .margin(14)
-            .x_label_area_size(46)
-            .y_label_area_size(58)
-            .build_cartesian_2d((x0 - pad)..(x1 + pad), 0.0f64..1.0)
-            .map_err(e2s)?;
-        chart
-            .configure_mesh()
-            .x_desc("layer")
-            .y_desc("held-out accuracy")
-            .x_labels(n_layers.min(16) + 1)
-            .y_labels(11)
-            .x_label_formatter(&|x| {
-                if (x - x.round()).abs() < 1e-6 {
-                    format!("{}", x.round() as i64)
-                } else {
-                    String::new()
-                }
-            })
-            .y_label_formatter(&|y| format!("{y:.1}"))
-            .label_style(text(13.0))
-            .axis_desc_style(text(15.0))
-            .light_line_style(RGBColor(235, 235, 235))
-            .bold_line_style(RGBColor(215, 215, 215))
-            .draw()
-            .map_err(e2s)?;
-        let colours = category_colours(self.tasks.len().max(2));
-        for (t, &col) in self.tasks.iter().zip(&colours) {
-            draw_task(&mut chart, t, col)?;
+        let colours = category_colours(every.len().max(2));
+        let (top, bottom) = if self.panels() > 1 {
+            let (a, b) = plot_area.split_vertically(h as i32 / 2);
+            (a, Some(b))
+        } else {
+            (plot_area.clone(), None)
+        };
+        let k = self.tasks.len();
+        if !self.tasks.is_empty() {
+            draw_panel(
+                &top,
+                &self.title,
+                "held-out accuracy",
+                (0.0, 1.0),
+                x,
+                &self.tasks,
+                &colours[..k],
+            )?;
         }
-        draw_legend(&legend_area, &self.tasks, &colours)
+        if !self.continuous.is_empty() {
+            let caption = if self.tasks.is_empty() {
+                self.title.clone()
+            } else {
+                "Continuous columns: held-out R² by layer".to_string()
+            };
+            draw_panel(
+                bottom.as_ref().unwrap_or(&top),
+                &caption,
+                "held-out R²",
+                r2_range(&self.continuous),
+                x,
+                &self.continuous,
+                &colours[k..],
+            )?;
+        }
+        let names: Vec<&TaskCurves> = every;
+        draw_legend(&legend_area, &names, &colours, !self.continuous.is_empty())
     }
 }
 
@@ -121,9 +232,23 @@ fn draw_task<DB: DrawingBackend>(
     chart: &mut ChartContext<DB, Cartesian2d<RangedCoordf64, RangedCoordf64>>,
     t: &TaskCurves,
     col: RGBColor,
+    (y0, y1): (f64, f64),
 ) -> Result<(), String> {
-    let mut band: Vec<(f64, f64)> = t.layers.iter().zip(&t.hi).map(|(&x, &y)| (x, y)).collect();
-    band.extend(t.layers.iter().zip(&t.lo).rev().map(|(&x, &y)| (x, y)));
+    // Values beyond the axis (an R² far below 0) are drawn at its edge.
+    let clip = |y: f64| y.clamp(y0, y1);
+    let mut band: Vec<(f64, f64)> = t
+        .layers
+        .iter()
+        .zip(&t.hi)
+        .map(|(&x, &y)| (x, clip(y)))
+        .collect();
+    band.extend(
+        t.layers
+            .iter()
+            .zip(&t.lo)
+            .rev()
+            .map(|(&x, &y)| (x, clip(y))),
+    );
     chart
         .draw_series(std::iter::once(Polygon::new(band, col.mix(0.22).filled())))
         .map_err(e2s)?;
@@ -132,7 +257,7 @@ fn draw_task<DB: DrawingBackend>(
             .iter()
             .zip(v)
             .filter(|(_, y)| y.is_finite())
-            .map(|(&x, &y)| (x, y))
+            .map(|(&x, &y)| (x, clip(y)))
             .collect()
     };
     chart
@@ -179,8 +304,9 @@ fn legend_line<DB: DrawingBackend>(
 /// Legend beside the chart, so it never hides a curve.
 fn draw_legend<DB: DrawingBackend>(
     legend: &DrawingArea<DB, Shift>,
-    tasks: &[TaskCurves],
+    tasks: &[&TaskCurves],
     colours: &[RGBColor],
+    continuous: bool,
 ) -> Result<(), String> {
     let grey = RGBColor(90, 90, 90);
     let x0 = 10i32;
@@ -197,10 +323,12 @@ fn draw_legend<DB: DrawingBackend>(
         y += 24;
     }
     y += 8;
-    for (label, dash, gap, wdt) in [
-        ("majority baseline (dashed)", 9, 6, 2),
-        ("control task (dotted)", 2, 5, 3),
-    ] {
+    let baseline = if continuous {
+        "majority / mean baseline (dashed)"
+    } else {
+        "majority baseline (dashed)"
+    };
+    for (label, dash, gap, wdt) in [(baseline, 9, 6, 2), ("control task (dotted)", 2, 5, 3)] {
         legend_line(legend, x0, y, grey.stroke_width(wdt), dash, gap)?;
         legend
             .draw(&Text::new(

@@ -47,6 +47,24 @@ pub fn probe(r: &ProbeReport) -> String {
             ));
         }
     }
+    for b in &r.summary.best_r2 {
+        let rec = r
+            .records
+            .iter()
+            .find(|x| x.task == b.task && x.layer == b.layer);
+        let extra = rec
+            .map(|x| {
+                format!(
+                    ", RMSE {:.4} against {:.4} for the training mean, r {:.3}, control R² {:.3}, split {}",
+                    x.rmse, x.baseline_rmse, x.pearson_r, x.control_r2, x.split
+                )
+            })
+            .unwrap_or_default();
+        s.push_str(&format!(
+            "  {:<10} best layer {:>2}: R² {:.3} (95% CI {:.3}-{:.3}{extra})\n",
+            b.task, b.layer, b.r2, b.ci_low, b.ci_high
+        ));
+    }
     match (
         r.summary.speaker_below_half_layer,
         r.summary.speaker_half_level,

@@ -50,6 +50,22 @@ pub fn write_records<T: Serialize>(
     records: &[T],
     extra: serde_json::Map<String, serde_json::Value>,
 ) -> Result<Vec<PathBuf>, OutputError> {
+    let json_path = write_envelope(dir, name, captures, options, records, extra)?;
+    let csv_path = dir.join(format!("{name}.csv"));
+    write_csv(&csv_path, records)?;
+    Ok(vec![json_path, csv_path])
+}
+
+/// Write `<dir>/<name>.json` (the envelope) alone, for a command that writes its CSV its own
+/// way; returns its path.
+pub fn write_envelope<T: Serialize>(
+    dir: &Path,
+    name: &str,
+    captures: &[CaptureRef],
+    options: serde_json::Value,
+    records: &[T],
+    extra: serde_json::Map<String, serde_json::Value>,
+) -> Result<PathBuf, OutputError> {
     let env = EnvelopeOut {
         tool: "voxstrata",
         version: env!("CARGO_PKG_VERSION"),
@@ -59,8 +75,6 @@ pub fn write_records<T: Serialize>(
         extra,
     };
     let json_path = dir.join(format!("{name}.json"));
-    let csv_path = dir.join(format!("{name}.csv"));
     write_json(&json_path, &env)?;
-    write_csv(&csv_path, records)?;
-    Ok(vec![json_path, csv_path])
+    Ok(json_path)
 }

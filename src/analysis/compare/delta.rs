@@ -186,6 +186,71 @@ pub fn delta_from_correct(p: &PairedCorrect, opts: &DeltaOptions, seed: u64) -> 
         mcnemar_method: m.method,
         b: m.b,
         c: m.c,
+        kind: "categorical".into(),
+        r2_a: f64::NAN,
+        r2_b: f64::NAN,
+    }
+}
+
+/// The paired predictions of a continuous task on A and on B (same test items, same order).
+pub struct PairedValues<'a> {
+    /// Layer number.
+    pub layer: usize,
+    /// Task name.
+    pub task: &'a str,
+    /// Training items per fit.
+    pub n_train: usize,
+    /// Each test item's value.
+    pub truth: &'a [f64],
+    /// A's prediction per test item.
+    pub a: &'a [f64],
+    /// B's prediction per test item.
+    pub b: &'a [f64],
+    /// Cluster (test speaker) per test item.
+    pub clusters: &'a [u32],
+}
+
+/// The delta record of a continuous task: R² on A and on B, each with its cluster-bootstrap
+/// interval, and ΔR² = R²(B) − R²(A) with a paired interval (each draw resamples the test
+/// speakers once and scores both sides on it). McNemar's test does not apply.
+pub fn delta_from_values(p: &PairedValues, opts: &DeltaOptions, seed: u64) -> ProbeDelta {
+    use crate::analysis::probe::{bootstrap, ridge};
+    let s = seed ^ 0x5eed_de17a;
+    let side = |pred: &[f64]| {
+        bootstrap::cluster_r2_interval(p.truth, pred, p.clusters, opts.n_boot, opts.level, s)
+    };
+    let (ia, ib) = (side(p.a), side(p.b));
+    let (r2_a, r2_b) = (ridge::r2(p.truth, p.a), ridge::r2(p.truth, p.b));
+    let diff = bootstrap::paired_r2_delta_interval(
+        p.truth,
+        p.a,
+        p.b,
+        p.clusters,
+        opts.n_boot,
+        opts.level,
+        s,
+    );
+    ProbeDelta {
+        layer: p.layer,
+        task: p.task.to_string(),
+        kind: "continuous".into(),
+        n_train: p.n_train,
+        n_test: p.truth.len(),
+        accuracy_a: f64::NAN,
+        ci_low_a: ia.0,
+        ci_high_a: ia.1,
+        accuracy_b: f64::NAN,
+        ci_low_b: ib.0,
+        ci_high_b: ib.1,
+        delta: r2_b - r2_a,
+        ci_low: diff.0,
+        ci_high: diff.1,
+        mcnemar_p: f64::NAN,
+        mcnemar_method: crate::records::compare::McNemarMethod::NotApplicable,
+        b: 0,
+        c: 0,
+        r2_a,
+        r2_b,
     }
 }
 

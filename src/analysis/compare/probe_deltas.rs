@@ -123,6 +123,21 @@ fn from_probes(
             )));
         }
         let ti = tasks.iter().position(|t| *t == qa.task).unwrap_or(0);
+        let dseed = mix(seed, 800 + (qa.layer as u64) * 1000 + ti as u64);
+        if !qa.truth.is_empty() {
+            // A continuous task: both sides predicted the same values of the same items.
+            let paired = delta::PairedValues {
+                layer: qa.layer,
+                task: &qa.task,
+                n_train: qa.n_train,
+                truth: &qa.truth,
+                a: &qa.pred,
+                b: &qb.pred,
+                clusters: &qa.cluster,
+            };
+            out.push(delta::delta_from_values(&paired, &dopts, dseed));
+            continue;
+        }
         let paired = PairedCorrect {
             layer: qa.layer,
             task: &qa.task,
@@ -131,7 +146,6 @@ fn from_probes(
             b: &qb.correct,
             clusters: &qa.cluster,
         };
-        let dseed = mix(seed, 800 + (qa.layer as u64) * 1000 + ti as u64);
         out.push(delta::delta_from_correct(&paired, &dopts, dseed));
     }
     Ok(out)
@@ -165,6 +179,11 @@ fn plan_deltas(
     let mut plans = Vec::new();
     for (ti, name) in names.iter().enumerate() {
         let Some(task) = a.frames.task(name) else {
+            notes.push(format!(
+                "probe deltas for '{name}' skipped: ΔR² of a continuous column is computed on \
+                 the probe stage's own folds, which needs every frame of both captures paired \
+                 in order (not paired by utterance, no --max-frames)"
+            ));
             continue;
         };
         let rows = DeltaRows {
@@ -189,16 +208,24 @@ fn delta_task_names(
     opts: &CompareOptions,
 ) -> Result<Vec<String>, CompareError> {
     let names: Vec<String> = if opts.tasks.is_empty() {
-        // Paired captures carry the same label columns (checked by the pairing).
+        // Paired captures carry the same label columns (checked by the pairing); continuous
+        // columns of both follow, as the probe stage takes them.
         let mut v = a.frames.default_tasks();
         v.retain(|n| b.frames.task(n).is_some() || n == "speaker");
+        v.extend(
+            a.frames
+                .continuous
+                .iter()
+                .filter(|c| b.frames.numeric(&c.name).is_some())
+                .map(|c| c.name.clone()),
+        );
         v
     } else {
         opts.tasks.clone()
     };
     for n in &names {
         for c in [a, b] {
-            if c.frames.task(n).is_none() {
+            if c.frames.task(n).is_none() && c.frames.numeric(n).is_none() {
                 return Err(CompareError::Input(format!(
                     "{}: --task {n}: not a label column; the capture has: {}",
                     c.dir.display(),

@@ -14,6 +14,7 @@ pub mod lbfgs;
 pub mod mdl;
 pub mod metrics;
 mod plan;
+pub mod regress;
 pub mod ridge;
 pub mod softmax;
 mod task;
@@ -23,8 +24,8 @@ use serde::Serialize;
 
 use crate::capture::{Capture, CaptureError, FrameTable};
 pub use crate::records::probe::{
-    BestConfusion, BestLayer, FoldSides, ProbeRecord, ProbeReport, ProbeSummary, TaskPredictions,
-    TaskSetup,
+    BestConfusion, BestFit, BestLayer, FoldSides, ProbeRecord, ProbeReport, ProbeSummary,
+    TaskPredictions, TaskSetup,
 };
 use crate::records::CaptureRef;
 use crate::select::pool::{self, Items, Pooling, UttIndex};
@@ -166,13 +167,14 @@ pub fn run(
     opts.check()?;
     let layers = cap.select_layers(common.layers.as_ref())?;
     let mut notes = Vec::new();
-    let plans = plan_tasks(cap, opts, common.seed, &mut notes)?;
+    let all = plan_tasks(cap, opts, common.seed, &mut notes)?;
     let idx = UttIndex::new(&cap.frames);
-    let (needed, row_of) = needed_frames(cap, &plans, &idx, opts.context);
-    let step = progress.step("probing layers", (layers.len() * plans.len()) as u64);
+    let (needed, row_of) = needed_frames(cap, &all, &idx, opts.context);
+    let n_tasks = all.class.len() + all.regress.len();
+    let step = progress.step("probing layers", (layers.len() * n_tasks) as u64);
     let mut records = Vec::new();
     let mut predictions = Vec::new();
-    let mut confusions: Vec<Vec<Vec<Vec<u64>>>> = vec![Vec::new(); plans.len()];
+    let mut confusions: Vec<Vec<Vec<Vec<u64>>>> = vec![Vec::new(); all.class.len()];
     for &li in &layers {
         let layer_id = cap.layers[li].id;
         step.message(&format!("layer {layer_id}"));
@@ -187,17 +189,34 @@ pub fn run(
             frames: &cap.frames,
             context: opts.context,
         };
-        for (ti, p) in plans.iter().enumerate() {
-            let scores = task::probe_task(&rows, p, ti, opts, common.seed)?;
-            records.push(scores.record(p, layer_id, ti, opts, common.seed));
-            predictions.push(scores.predictions(p, layer_id));
-            confusions[ti].push(scores.confusion(p.classes.len()));
+        let mut layer_records: Vec<(usize, ProbeRecord, TaskPredictions)> = Vec::new();
+        for (ci, (ti, p)) in all.class.iter().enumerate() {
+            let scores = task::probe_task(&rows, p, *ti, opts, common.seed)?;
+            let rec = scores.record(p, layer_id, *ti, opts, common.seed);
+            layer_records.push((*ti, rec, scores.predictions(p, layer_id)));
+            confusions[ci].push(scores.confusion(p.classes.len()));
             step.inc(1);
         }
+        for (ti, p) in &all.regress {
+            let scores = regress::probe_task(&rows, p, *ti, opts, common.seed)?;
+            let rec = scores.record(p, layer_id, *ti, opts, common.seed);
+            layer_records.push((*ti, rec, scores.predictions(p, layer_id)));
+            step.inc(1);
+        }
+        // Records in the order the tasks were named.
+        layer_records.sort_by_key(|r| r.0);
+        for (_, rec, pred) in layer_records {
+            records.push(rec);
+            predictions.push(pred);
+        }
     }
-    note_point_intervals(&plans, &mut notes);
+    let plans: Vec<TaskPlan> = all.class.into_iter().map(|(_, p)| p).collect();
+    note_point_intervals(&plans, &all.regress, &mut notes);
     let (confusion, best) = best_layers(&plans, &records, &confusions);
     let (speaker_below_half_layer, speaker_half_level) = speaker_fall(&records);
+    let class_setups: Vec<TaskSetup> = plans.into_iter().map(|p| p.setup).collect();
+    let setups = task_setups(class_setups, all.regress, &records);
+    let best_r2 = regress::best_fits(&records, &setups);
     let options = options_value(cap, opts, common, &layers)?;
     Ok(ProbeReport {
         capture: CaptureRef {
@@ -206,10 +225,11 @@ pub fn run(
         },
         options,
         records,
-        tasks: plans.into_iter().map(|p| p.setup).collect(),
+        tasks: setups,
         confusion,
         summary: ProbeSummary {
             best,
+            best_r2,
             speaker_below_half_layer,
             speaker_half_level,
         },
@@ -223,16 +243,21 @@ pub fn run(
 /// touches a small share of its rows, so only those are read from each layer.
 fn needed_frames(
     cap: &Capture,
-    plans: &[TaskPlan],
+    plans: &plan::Plans,
     idx: &UttIndex,
     context: usize,
 ) -> (Vec<usize>, Option<Vec<u32>>) {
     let n_frames = cap.frames.n_frames();
     let mut mask = vec![false; n_frames];
-    for p in plans {
-        for f in &p.folds {
+    let sides = plans
+        .class
+        .iter()
+        .map(|(_, p)| (&p.items, &p.folds))
+        .chain(plans.regress.iter().map(|(_, p)| (&p.items, &p.folds)));
+    for (items, folds) in sides {
+        for f in folds {
             for which in [&f.train, &f.test] {
-                pool::mark_frames(&p.items, which, idx, &cap.frames, context, &mut mask);
+                pool::mark_frames(items, which, idx, &cap.frames, context, &mut mask);
             }
         }
     }
@@ -272,22 +297,52 @@ impl LayerRows<'_> {
     }
 }
 
+/// The set-ups of every task in the order of their records (the order the tasks were named).
+fn task_setups(
+    class: Vec<TaskSetup>,
+    regress: Vec<(usize, regress::RegressPlan)>,
+    records: &[ProbeRecord],
+) -> Vec<TaskSetup> {
+    let position = |name: &str| records.iter().position(|r| r.task == name);
+    let mut all = class;
+    all.extend(regress.into_iter().map(|(_, p)| p.setup));
+    all.sort_by_key(|s| position(&s.task));
+    all
+}
+
 /// Note tasks with fewer than two test clusters: their intervals degenerate to a point.
-fn note_point_intervals(plans: &[TaskPlan], notes: &mut Vec<String>) {
-    for p in plans {
-        let mut cl: Vec<u32> = p
-            .folds
-            .iter()
-            .flat_map(|f| f.test.iter().map(|&i| task::cluster_of(p, i)))
-            .collect();
+fn note_point_intervals(
+    plans: &[TaskPlan],
+    regress: &[(usize, regress::RegressPlan)],
+    notes: &mut Vec<String>,
+) {
+    let clusters = plans
+        .iter()
+        .map(|p| {
+            let cl: Vec<u32> = p
+                .folds
+                .iter()
+                .flat_map(|f| f.test.iter().map(|&i| task::cluster_of(p, i)))
+                .collect();
+            (&p.name, p.speaker_task, cl)
+        })
+        .chain(regress.iter().map(|(_, p)| {
+            let cl: Vec<u32> = p
+                .folds
+                .iter()
+                .flat_map(|f| f.test.iter().map(|&i| p.items.speaker[i]))
+                .collect();
+            (&p.name, false, cl)
+        }));
+    for (name, speaker_task, mut cl) in clusters {
         cl.sort_unstable();
         cl.dedup();
         if cl.len() < 2 {
             notes.push(format!(
                 "task '{}': only {} test {}: the interval cannot be estimated and is shown as a point",
-                p.name,
+                name,
                 cl.len(),
-                if p.speaker_task { "utterance" } else { "speaker" }
+                if speaker_task { "utterance" } else { "speaker" }
             ));
         }
     }

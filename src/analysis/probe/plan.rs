@@ -31,14 +31,21 @@ fn input(msg: String) -> ProbeError {
     ProbeError::Input(msg)
 }
 
-/// Plan every task of `opts.tasks` (default: the frame table's default tasks), in order.
-/// Warnings and notes go to `notes`.
+/// The planned tasks: categorical ones (classifiers) and continuous ones (ridge), each with
+/// the seeds of its position among all tasks.
+pub(super) struct Plans {
+    pub(super) class: Vec<(usize, TaskPlan)>,
+    pub(super) regress: Vec<(usize, super::regress::RegressPlan)>,
+}
+
+/// Plan every task of `opts.tasks` (default: the frame table's default tasks, then every
+/// continuous column), in order. Warnings and notes go to `notes`.
 pub(super) fn plan_tasks(
     cap: &Capture,
     opts: &ProbeOptions,
     seed: u64,
     notes: &mut Vec<String>,
-) -> Result<Vec<TaskPlan>, ProbeError> {
+) -> Result<Plans, ProbeError> {
     let names = task_names(cap, opts)?;
     if let Some(col) = opts.control_by.as_deref().filter(|_| opts.control) {
         check_control_column(cap, col)?;
@@ -53,9 +60,19 @@ pub(super) fn plan_tasks(
             ));
         }
     }
-    let mut plans = Vec::new();
+    let mut plans = Plans {
+        class: Vec::new(),
+        regress: Vec::new(),
+    };
     for (ti, name) in names.iter().enumerate() {
-        plans.push(plan_task(cap, &idx, opts, ti, name, seed, notes)?);
+        if let Some(numeric) = cap.frames.numeric(name) {
+            let p = super::regress::plan_task(cap, &idx, opts, ti, numeric, seed, notes)?;
+            plans.regress.push((ti, p));
+        } else {
+            plans
+                .class
+                .push((ti, plan_task(cap, &idx, opts, ti, name, seed, notes)?));
+        }
     }
     Ok(plans)
 }
@@ -64,16 +81,20 @@ pub(super) fn plan_tasks(
 fn task_names(cap: &Capture, opts: &ProbeOptions) -> Result<Vec<String>, ProbeError> {
     let t = &cap.frames;
     let names: Vec<String> = if opts.tasks.is_empty() {
-        t.default_tasks()
+        let mut v = t.default_tasks();
+        v.extend(t.continuous.iter().map(|c| c.name.clone()));
+        v
     } else {
         opts.tasks.clone()
     };
     for n in &names {
-        if t.task(n).is_none() {
+        if t.task(n).is_none() && t.numeric(n).is_none() {
+            let mut all = t.task_names();
+            all.extend(t.continuous.iter().map(|c| c.name.clone()));
             return Err(input(format!(
                 "{}: --task {n}: not a label column; the capture has: {}",
                 cap.dir.display(),
-                t.task_names().join(", ")
+                all.join(", ")
             )));
         }
     }
@@ -162,6 +183,7 @@ fn plan_task(
     };
     let setup = TaskSetup {
         task: name.to_string(),
+        kind: "categorical".into(),
         classes: classes.clone(),
         dropped,
         split: sp.kind,
@@ -301,7 +323,11 @@ fn checked_kind(
 }
 
 /// A speaker-disjoint split needs labelled items from at least two speakers.
-fn check_two_speakers(cap: &Capture, name: &str, items: &Items) -> Result<(), ProbeError> {
+pub(super) fn check_two_speakers(
+    cap: &Capture,
+    name: &str,
+    items: &Items,
+) -> Result<(), ProbeError> {
     let mut spk: Vec<u32> = items.speaker.clone();
     spk.sort_unstable();
     spk.dedup();
@@ -431,7 +457,13 @@ fn keep_usable_classes(
 
 /// The folds of `sp` with each side capped (stratified by class) at `--max-train-frames` and
 /// `--max-test-frames`.
-fn capped_folds(sp: &Split, items: &Items, opts: &ProbeOptions, ti: usize, seed: u64) -> Vec<Fold> {
+pub(super) fn capped_folds(
+    sp: &Split,
+    items: &Items,
+    opts: &ProbeOptions,
+    ti: usize,
+    seed: u64,
+) -> Vec<Fold> {
     sp.folds
         .iter()
         .enumerate()
@@ -465,7 +497,7 @@ fn note_frame_split(kind: SplitKind, name: &str, notes: &mut Vec<String>) {
 }
 
 /// Note when the test cap left test items out.
-fn note_test_cap(
+pub(super) fn note_test_cap(
     sp: &Split,
     folds: &[Fold],
     name: &str,
@@ -484,7 +516,7 @@ fn note_test_cap(
 }
 
 /// What a split of this kind keeps apart, in words.
-fn group_word(kind: SplitKind) -> &'static str {
+pub(super) fn group_word(kind: SplitKind) -> &'static str {
     match kind {
         SplitKind::Speaker => "speakers",
         SplitKind::Utterance => "utterances",
@@ -493,7 +525,12 @@ fn group_word(kind: SplitKind) -> &'static str {
 }
 
 /// Each fold's sides by name (speakers or utterances; none for other kinds) and size.
-fn fold_sides(kind: SplitKind, folds: &[Fold], items: &Items, t: &FrameTable) -> Vec<FoldSides> {
+pub(super) fn fold_sides(
+    kind: SplitKind,
+    folds: &[Fold],
+    items: &Items,
+    t: &FrameTable,
+) -> Vec<FoldSides> {
     let names_of = |ix: &[usize]| -> Vec<String> {
         let mut ids: Vec<u32> = match kind {
             SplitKind::Speaker => ix.iter().map(|&i| items.speaker[i]).collect(),

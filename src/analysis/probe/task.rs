@@ -187,6 +187,8 @@ impl TaskScores {
                 .collect(),
             cluster: self.cluster.clone(),
             n_train: self.mean_train(p),
+            truth: vec![],
+            pred: vec![],
         }
     }
 
@@ -228,6 +230,7 @@ impl TaskScores {
         let mut r = ProbeRecord {
             layer,
             task: p.name.clone(),
+            kind: "categorical".into(),
             pooling: opts.pooling.name().to_string(),
             split: p.kind.name().to_string(),
             n_train: self.mean_train(p),
@@ -258,6 +261,13 @@ impl TaskScores {
             mdl_uniform_bits: f64::NAN,
             mdl_online_bits: f64::NAN,
             mdl_compression: f64::NAN,
+            r2: f64::NAN,
+            rmse: f64::NAN,
+            pearson_r: f64::NAN,
+            baseline_rmse: f64::NAN,
+            control_r2: f64::NAN,
+            alpha: f64::NAN,
+            r2_sd: f64::NAN,
         };
         match &self.mdl {
             Some(Ok(c)) => {

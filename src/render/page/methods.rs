@@ -85,7 +85,12 @@ fn probe_methods(p: &mut String, inp: &ReportInputs, sec: &CaptureSection) {
     if sec.probe.is_empty() {
         let _ = write!(p, "No probe results were available for “{name}”. ");
     } else {
-        let tasks = distinct(sec.probe.iter().map(|r| r.task.clone()));
+        let tasks = distinct(
+            sec.probe
+                .iter()
+                .filter(|r| !r.is_continuous())
+                .map(|r| r.task.clone()),
+        );
         let parts: Vec<String> = tasks
             .iter()
             .map(|t| {
@@ -103,11 +108,14 @@ fn probe_methods(p: &mut String, inp: &ReportInputs, sec: &CaptureSection) {
                 )
             })
             .collect();
-        let _ = write!(
-            p,
-            "On “{name}”, a linear probe (multinomial logistic regression) was trained on every layer for {}; each accuracy is shown with its 95% interval beside the majority-class baseline. ",
-            parts.join(", ")
-        );
+        if !parts.is_empty() {
+            let _ = write!(
+                p,
+                "On “{name}”, a linear probe (multinomial logistic regression) was trained on every layer for {}; each accuracy is shown with its 95% interval beside the majority-class baseline. ",
+                parts.join(", ")
+            );
+        }
+        regress_sentence(p, name, &sec.probe);
         control_sentence(p, &sec.probe);
         folds_sentence(p, &sec.probe);
         mdl_sentence(p, &sec.probe);
@@ -141,6 +149,23 @@ fn probe_methods(p: &mut String, inp: &ReportInputs, sec: &CaptureSection) {
 }
 
 /// The control task as run: its types and what selectivity means.
+/// The sentence on the regression probes of continuous columns, if any.
+fn regress_sentence(p: &mut String, name: &str, recs: &[ProbeRecord]) {
+    let cols = distinct(
+        recs.iter()
+            .filter(|r| r.is_continuous())
+            .map(|r| r.task.clone()),
+    );
+    if cols.is_empty() {
+        return;
+    }
+    let _ = write!(
+        p,
+        "On “{name}”, each continuous column ({}) was probed on every layer by ridge regression on standardised features (target standardised on the training side, penalty chosen from the same grid on the same kind of inner split, same outer folds as the classifiers); frames without a value were left out. Its held-out R² is shown with a 95% cluster-bootstrap interval over test speakers, beside the error of predicting the training mean (RMSE in the table, its R² dashed in the figure); R² measures how much of the value a linear map of the layer recovers, not whether the model uses it. ",
+        cols.join(", ")
+    );
+}
+
 fn control_sentence(p: &mut String, recs: &[ProbeRecord]) {
     let by = distinct(
         recs.iter()
@@ -161,6 +186,15 @@ fn control_sentence(p: &mut String, recs: &[ProbeRecord]) {
         p,
         "The control task (Hewitt & Liang 2019) gives each type, here {types}, one random label drawn from the task's class frequencies with the run's seed; types recur across speakers and utterances, so a probe with enough capacity can learn that mapping. The same probe, with the same penalty and split, was trained on it; selectivity is accuracy minus control accuracy. "
     );
+    if recs
+        .iter()
+        .any(|r| r.is_continuous() && r.control_by != "none")
+    {
+        let _ = write!(
+            p,
+            "For a continuous column each type instead gets one value drawn from the fold's training values, the same ridge is fitted to it, and selectivity is R² minus control R². "
+        );
+    }
 }
 
 /// How the test side was formed: one split or grouped folds.

@@ -22,7 +22,10 @@ use crate::render::{palette::OTHER, Rgb};
 use explorer::map_json;
 pub use headline::{crossover, headline_svg, CrossKind, Crossover};
 use methods::methods_html;
-use tables::{probe_rows, purity_rows, summary_table, table, PROBE_HEAD, PURITY_HEAD};
+use tables::{
+    probe_rows, purity_rows, regress_rows, summary_table, table, PROBE_HEAD, PURITY_HEAD,
+    REGRESS_HEAD,
+};
 
 const STYLE: &str = include_str!("style.css");
 const SCRIPT: &str = include_str!("explorer.js");
@@ -331,26 +334,36 @@ fn compare_html(o: &mut String, inp: &ReportInputs, c: &CompareInputs) {
         .probe_delta
         .iter()
         .map(|d| {
+            let (sa, sb) = d.scores();
+            let (p, only) = if d.is_continuous() {
+                (
+                    "does not apply: values are not right or wrong (ΔR², paired bootstrap)".into(),
+                    "—".into(),
+                )
+            } else {
+                (pvalue(d.mcnemar_p), format!("{} / {}", d.b, d.c))
+            };
             vec![
                 d.layer.to_string(),
                 d.task.clone(),
-                f3(d.accuracy_a),
-                f3(d.accuracy_b),
+                if d.is_continuous() { "R²" } else { "accuracy" }.into(),
+                f3(sa),
+                f3(sb),
                 f3(d.delta),
                 format!("{} to {}", f3(d.ci_low), f3(d.ci_high)),
-                pvalue(d.mcnemar_p),
-                format!("{} / {}", d.b, d.c),
+                p,
+                only,
             ]
         })
         .collect();
     if !rows.is_empty() {
-        let a = format!("accuracy {}", c.name_a);
-        let b = format!("accuracy {}", c.name_b);
+        let a = format!("score {}", c.name_a);
+        let b = format!("score {}", c.name_b);
         let only = format!("right on {} only / {} only", c.name_a, c.name_b);
         table(
                 o,
-                "Probe accuracy per layer in both captures (difference with its paired speaker-bootstrap 95% interval; McNemar's test on paired predictions)",
-                &["layer", "task", &a, &b, "difference", "95% interval", "McNemar p", &only],
+                "Probe scores per layer in both captures: accuracy, or R² for a continuous column (difference with its paired speaker-bootstrap 95% interval; McNemar's test on paired predictions of categorical tasks)",
+                &["layer", "task", "score", &a, &b, "difference", "95% interval", "McNemar p", &only],
                 &rows,
             );
     }
@@ -362,12 +375,17 @@ fn numbers_html(o: &mut String, inp: &ReportInputs) {
     o.push_str("<section id=\"numbers\"><h2>Numbers behind the figures</h2>");
     for sec in &inp.captures {
         let name = &sec.summary.name;
-        if !sec.probe.is_empty() {
+        let class_rows = probe_rows(&sec.probe);
+        if !class_rows.is_empty() {
+            table(o, &format!("Probes: {name}"), &PROBE_HEAD, &class_rows);
+        }
+        let value_rows = regress_rows(&sec.probe);
+        if !value_rows.is_empty() {
             table(
                 o,
-                &format!("Probes: {name}"),
-                &PROBE_HEAD,
-                &probe_rows(&sec.probe),
+                &format!("Regression probes of continuous columns (ridge; R² on held-out speakers): {name}"),
+                &REGRESS_HEAD,
+                &value_rows,
             );
         }
         if !sec.purity.is_empty() {

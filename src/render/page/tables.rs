@@ -71,6 +71,27 @@ pub(super) fn summary_table(out: &mut String, secs: &[CaptureSection]) {
                 .collect::<Vec<_>>()
                 .join("; ")
         }),
+        row("continuous columns", &|s| {
+            if s.summary.continuous.is_empty() {
+                return "none".into();
+            }
+            s.summary
+                .continuous
+                .iter()
+                .map(|c| {
+                    format!(
+                        "{}: {} frames with a value ({} without), {}–{}, mean {}",
+                        c.column,
+                        c.labelled_frames,
+                        c.missing_frames,
+                        num(c.min),
+                        num(c.max),
+                        num(c.mean)
+                    )
+                })
+                .collect::<Vec<_>>()
+                .join("; ")
+        }),
         row("size on disk", &|s| {
             crate::render::summary::human_bytes(s.summary.bytes_on_disk)
         }),
@@ -102,8 +123,70 @@ pub(super) fn summary_table(out: &mut String, secs: &[CaptureSection]) {
     table(out, "Captures", &head, &rows);
 }
 
+/// A value with four significant digits (column ranges and means in their own units).
+fn num(v: f64) -> String {
+    if !v.is_finite() {
+        "—".into()
+    } else if v == 0.0 {
+        "0".into()
+    } else if v.abs() >= 1e5 || v.abs() < 1e-3 {
+        format!("{v:.3e}")
+    } else {
+        let digits = (3 - v.abs().log10().floor() as i32).clamp(0, 6) as usize;
+        format!("{v:.digits$}")
+    }
+}
+
+/// The rows of the continuous (ridge) records: R² and its interval, RMSE, r, the
+/// training-mean baseline, the control and the penalty.
+pub(super) fn regress_rows(recs: &[ProbeRecord]) -> Vec<Vec<String>> {
+    recs.iter()
+        .filter(|r| r.is_continuous())
+        .map(|r| {
+            vec![
+                r.layer.to_string(),
+                r.task.clone(),
+                r.pooling.clone(),
+                r.split.clone(),
+                r.n_train.to_string(),
+                r.n_test.to_string(),
+                f3(r.r2),
+                format!("{}–{}", f3(r.ci_low), f3(r.ci_high)),
+                num(r.rmse),
+                f3(r.pearson_r),
+                num(r.baseline_rmse),
+                f3(r.control_r2),
+                f3(r.selectivity),
+                format!("{:e}", r.alpha),
+                r.folds.to_string(),
+                f3(r.r2_sd),
+            ]
+        })
+        .collect()
+}
+
+pub(super) const REGRESS_HEAD: [&str; 16] = [
+    "layer",
+    "task",
+    "pooling",
+    "split",
+    "train",
+    "test",
+    "R²",
+    "95% interval",
+    "RMSE",
+    "Pearson r",
+    "baseline RMSE (training mean)",
+    "control R²",
+    "selectivity",
+    "α per item",
+    "folds",
+    "fold sd",
+];
+
 pub(super) fn probe_rows(recs: &[ProbeRecord]) -> Vec<Vec<String>> {
     recs.iter()
+        .filter(|r| !r.is_continuous())
         .map(|r| {
             vec![
                 r.layer.to_string(),
@@ -186,3 +269,15 @@ pub(super) const PURITY_HEAD: [&str; 11] = [
     "variance ratio",
     "share inside phones",
 ];
+
+#[cfg(test)]
+mod num_tests {
+    #[test]
+    fn values_keep_four_significant_digits() {
+        assert_eq!(super::num(0.0), "0");
+        assert_eq!(super::num(123.456), "123.5");
+        assert_eq!(super::num(-0.5), "-0.5000");
+        assert_eq!(super::num(2e-5), "2.000e-5");
+        assert_eq!(super::num(f64::NAN), "—");
+    }
+}
