@@ -38,7 +38,18 @@ impl PackedRows {
     /// Pack the rows of `x` (any layout), optionally standardising each value as
     /// `(v - mean[j]) / scale[j]` on the way.
     pub fn pack(x: &ndarray::ArrayView2<f32>, standardise: Option<(&[f32], &[f32])>) -> Self {
-        let (n, d) = x.dim();
+        Self::pack_rows(x, None, standardise)
+    }
+
+    /// Pack the rows `rows` of `x` (all rows when None), in that order, optionally
+    /// standardising as [`PackedRows::pack`] does; no other copy of the rows is made.
+    pub fn pack_rows(
+        x: &ndarray::ArrayView2<f32>,
+        rows: Option<&[usize]>,
+        standardise: Option<(&[f32], &[f32])>,
+    ) -> Self {
+        let d = x.ncols();
+        let n = rows.map_or(x.nrows(), |r| r.len());
         let panels = n.div_ceil(MR);
         let mut data = vec![0f32; panels * MR * d];
         data.par_chunks_mut(MR * d * (BLOCK / MR))
@@ -47,7 +58,7 @@ impl PackedRows {
                 for (pi, panel) in chunk.chunks_mut(MR * d).enumerate() {
                     let lo = (bi * (BLOCK / MR) + pi) * MR;
                     for r in 0..MR.min(n.saturating_sub(lo)) {
-                        let row = x.row(lo + r);
+                        let row = x.row(rows.map_or(lo + r, |rs| rs[lo + r]));
                         for (j, &v) in row.iter().enumerate() {
                             panel[j * MR + r] = match standardise {
                                 Some((m, s)) => (v - m[j]) / s[j],
@@ -427,5 +438,9 @@ mod tests {
         assert_eq!(p.data[MR * 3 + 2 * MR + 1], (29.0 - 3.0) / 8.0);
         assert_eq!(p.data[2 * MR + 3], (11.0 - 3.0) / 8.0);
         assert_eq!(p.data[MR * 3 + 2 * MR + 2], 0.0);
+        // a row subset, in the order given
+        let q = PackedRows::pack_rows(&x.view(), Some(&[9, 0]), None);
+        assert_eq!((q.nrows(), q.data.len()), (2, MR * 3));
+        assert_eq!((q.data[0], q.data[1], q.data[2 * MR + 1]), (27.0, 0.0, 2.0));
     }
 }
