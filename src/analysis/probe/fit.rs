@@ -103,6 +103,26 @@ fn take_rows(x: &ArrayView2<f32>, rows: &[usize], std: &Standardizer) -> Array2<
     t
 }
 
+/// Class probabilities of the rows of `x`, standardised by `std` a block of rows at a time
+/// (no standardised copy of the whole test side is held).
+fn predict_rows(
+    model: &softmax::SoftmaxModel,
+    x: &ArrayView2<f32>,
+    std: &Standardizer,
+) -> Array2<f32> {
+    const ROWS: usize = 4096;
+    let mut out = Array2::<f32>::zeros((x.nrows(), model.b.len()));
+    for (xb, mut ob) in x
+        .axis_chunks_iter(Axis(0), ROWS)
+        .zip(out.axis_chunks_iter_mut(Axis(0), ROWS))
+    {
+        let mut t = xb.to_owned();
+        std.apply(&mut t);
+        ob.assign(&model.predict_proba(&t.view()));
+    }
+    out
+}
+
 /// The mean and scale of `std`, as the packing takes them.
 fn stats(std: &Standardizer) -> Option<(&[f32], &[f32])> {
     Some((&std.mean, &std.scale))
@@ -298,8 +318,6 @@ pub fn fit_predict(
         return Ok(single_class_fit(&present, x_test.nrows(), n_classes));
     }
     let std = Standardizer::fit(&x_train);
-    let mut xt = x_test.to_owned();
-    std.apply(&mut xt);
     let lb = LbfgsOptions {
         max_iter: opts.max_iter,
         gtol: opts.tol,
@@ -316,7 +334,7 @@ pub fn fit_predict(
         &FitSettings { c, lbfgs: lb },
         choice.warm.as_deref(),
     );
-    let (pred, proba) = to_all_classes(&model.predict_proba(&xt.view()), &present, n_classes);
+    let (pred, proba) = to_all_classes(&predict_rows(&model, &x_test, &std), &present, n_classes);
     Ok(Fit {
         pred,
         proba,

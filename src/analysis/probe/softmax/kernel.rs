@@ -339,6 +339,8 @@ mod avx512 {
         for j in 0..d {
             let xr = xp.add(j * MR);
             let orow = op.add(j * kp);
+            // v indexes the register tile across rows (gv[r][v]), so a range loop is clearest
+            #[allow(clippy::needless_range_loop)]
             for v in 0..NV {
                 // two chains (even and odd rows) to halve the dependency latency
                 let mut a = _mm512_loadu_ps(orow.add(v * LANES));
