@@ -25,8 +25,10 @@ import gen_data
 
 HERE = os.path.dirname(os.path.abspath(__file__))
 ROOT = os.path.dirname(HERE)
-BIN = os.path.join(ROOT, "target", "release", "voxstrata")
-EXAMPLES = os.path.join(ROOT, "target", "release", "examples")
+# cargo's output folder: CARGO_TARGET_DIR when set (bench/run builds there), else target/.
+TARGET = os.environ.get("CARGO_TARGET_DIR") or os.path.join(ROOT, "target")
+BIN = os.path.join(TARGET, "release", "voxstrata")
+EXAMPLES = os.path.join(TARGET, "release", "examples")
 PY = sys.executable
 OUT = os.path.join(HERE, "out")
 SEED = gen_data.SEED
@@ -686,7 +688,6 @@ def main():
     ap = argparse.ArgumentParser()
     ap.add_argument("--quick", action="store_true")
     ap.add_argument("--only", nargs="*", help="row numbers to run (1..10)")
-    ap.add_argument("--only", nargs="*", help="row numbers to run (1..8)")
     a = ap.parse_args()
     only = set(a.only or [])
     want = lambda n: not only or str(n) in only  # noqa: E731

@@ -762,7 +762,7 @@ mod tests {
 
     fn header_bytes(dict: &str, data_len: usize) -> Vec<u8> {
         let mut h = dict.to_string();
-        while (10 + h.len() + 1) % 64 != 0 {
+        while !(10 + h.len() + 1).is_multiple_of(64) {
             h.push(' ');
         }
         h.push('\n');

@@ -158,6 +158,16 @@ pub fn layer_records(
     x: ArrayView2<f32>,
     layer: usize,
 ) -> Result<LayerAbx, AbxError> {
+    layer_records_owned(items, x.to_owned(), layer)
+}
+
+/// [`layer_records`] on frames the caller gives up: they are scaled to unit length in place
+/// (no second copy of the layer's rows).
+pub fn layer_records_owned(
+    items: &AbxItems,
+    x: Array2<f32>,
+    layer: usize,
+) -> Result<LayerAbx, AbxError> {
     let rows = items.rows();
     if x.nrows() != rows.len() {
         return Err(AbxError::Rows {
@@ -209,8 +219,7 @@ pub fn layer_records(
 }
 
 /// Frames scaled to unit length, and which frames are all zero (left as they are).
-fn unit_rows(x: ArrayView2<f32>) -> (Array2<f32>, Vec<bool>) {
-    let mut xn = x.to_owned();
+fn unit_rows(mut xn: Array2<f32>) -> (Array2<f32>, Vec<bool>) {
     let mut zero = vec![false; xn.nrows()];
     for (mut row, z) in xn.outer_iter_mut().zip(zero.iter_mut()) {
         let norm = row
@@ -415,7 +424,7 @@ pub fn score_layer(
 ) -> Result<(Vec<AbxRecord>, Option<String>), AbxError> {
     let id = cap.layers[li].id;
     let x = cap.read_layer_rows(li, items.rows())?;
-    let out = layer_records(items, x.view(), id)?;
+    let out = layer_records_owned(items, x, id)?;
     let note = (out.zero_frames > 0).then(|| {
         format!(
             "layer {id}: {} frames are zero vectors; their distance to every frame is taken as 1/2",

@@ -11,7 +11,7 @@ use serde::Serialize;
 use crate::analysis::seed::mix;
 
 use super::lbfgs::LbfgsOptions;
-use super::softmax::{self, FitSettings, Standardizer};
+use super::softmax::{self, FitSettings, PackedRows, Standardizer};
 use super::{metrics, ProbeError, ProbeOptions};
 
 /// One point of the penalty search.
@@ -96,8 +96,36 @@ fn inner_split(
     (!va.is_empty() && classes >= 2).then_some((tr, va))
 }
 
-fn take_rows(x: &ArrayView2<f32>, rows: &[usize]) -> Array2<f32> {
-    x.select(Axis(0), rows)
+/// The rows `rows` of `x`, standardised.
+fn take_rows(x: &ArrayView2<f32>, rows: &[usize], std: &Standardizer) -> Array2<f32> {
+    let mut t = x.select(Axis(0), rows);
+    std.apply(&mut t);
+    t
+}
+
+/// Class probabilities of the rows of `x`, standardised by `std` a block of rows at a time
+/// (no standardised copy of the whole test side is held).
+fn predict_rows(
+    model: &softmax::SoftmaxModel,
+    x: &ArrayView2<f32>,
+    std: &Standardizer,
+) -> Array2<f32> {
+    const ROWS: usize = 4096;
+    let mut out = Array2::<f32>::zeros((x.nrows(), model.b.len()));
+    for (xb, mut ob) in x
+        .axis_chunks_iter(Axis(0), ROWS)
+        .zip(out.axis_chunks_iter_mut(Axis(0), ROWS))
+    {
+        let mut t = xb.to_owned();
+        std.apply(&mut t);
+        ob.assign(&model.predict_proba(&t.view()));
+    }
+    out
+}
+
+/// The mean and scale of `std`, as the packing takes them.
+fn stats(std: &Standardizer) -> Option<(&[f32], &[f32])> {
+    Some((&std.mean, &std.scale))
 }
 
 /// Refuse inputs that do not fit together (row counts, widths, label codes, penalty grid).
@@ -177,9 +205,12 @@ struct PenaltyChoice {
 }
 
 /// Choose the penalty from `opts.alphas` (strongest first) on the inner split of the
-/// standardised training rows `xs`; the middle of the grid when there is nothing to search.
+/// training rows `x` (standardised by `std`); the middle of the grid when there is nothing to
+/// search.
+#[allow(clippy::too_many_arguments)]
 fn choose_penalty(
-    xs: &Array2<f32>,
+    x: &ArrayView2<f32>,
+    std: &Standardizer,
     y: &[u32],
     k: usize,
     inner_groups: &[u32],
@@ -196,7 +227,7 @@ fn choose_penalty(
     };
     if alphas.len() > 1 {
         if let Some((tr, va)) = inner_split(inner_groups, y, k, opts.inner_fraction, mix(seed, 1)) {
-            choice = search_grid(xs, y, k, &tr, &va, &alphas, lb);
+            choice = search_grid(x, std, y, k, (&tr, &va), &alphas, lb);
         }
     }
     choice
@@ -204,19 +235,20 @@ fn choose_penalty(
 
 /// Fit every penalty of `alphas` (strongest first, each warm-started from the previous one)
 /// on the inner training rows `tr` and score it on the validation rows `va`; the first best
-/// validation accuracy wins.
+/// validation accuracy wins. The inner training rows are packed (standardised) once for the
+/// whole grid.
 fn search_grid(
-    xs: &Array2<f32>,
+    x: &ArrayView2<f32>,
+    std: &Standardizer,
     y: &[u32],
     k: usize,
-    tr: &[usize],
-    va: &[usize],
+    (tr, va): (&[usize], &[usize]),
     alphas: &[f64],
     lb: &LbfgsOptions,
 ) -> PenaltyChoice {
-    let xa = take_rows(&xs.view(), tr);
+    let xa = PackedRows::pack_rows(x, Some(tr), stats(std));
     let ya: Vec<u32> = tr.iter().map(|&i| y[i]).collect();
-    let xv = take_rows(&xs.view(), va);
+    let xv = take_rows(x, va, std);
     let yv: Vec<u32> = va.iter().map(|&i| y[i]).collect();
     let mut search = Vec::new();
     let mut prev: Option<Vec<f64>> = None;
@@ -228,7 +260,7 @@ fn search_grid(
             c,
             lbfgs: lb.clone(),
         };
-        let m = softmax::fit(&xa.view(), &ya, k, &settings, prev.as_deref());
+        let m = softmax::fit_packed(&xa, &ya, k, &settings, prev.as_deref());
         let pred = softmax::argmax_rows(&m.predict_proba(&xv.view()).view());
         let acc = metrics::accuracy(&yv, &pred);
         search.push(SearchPoint {
@@ -286,25 +318,23 @@ pub fn fit_predict(
         return Ok(single_class_fit(&present, x_test.nrows(), n_classes));
     }
     let std = Standardizer::fit(&x_train);
-    let mut xs = x_train.to_owned();
-    std.apply(&mut xs);
-    let mut xt = x_test.to_owned();
-    std.apply(&mut xt);
     let lb = LbfgsOptions {
         max_iter: opts.max_iter,
         gtol: opts.tol,
         ..Default::default()
     };
-    let choice = choose_penalty(&xs, &y, k, inner_groups, opts, &lb, seed);
+    let choice = choose_penalty(&x_train, &std, &y, k, inner_groups, opts, &lb, seed);
     let c = 1.0 / (choice.alpha * n as f64);
-    let model = softmax::fit(
-        &xs.view(),
+    // packed and standardised in one copy, after the search's copies are gone
+    let xs = PackedRows::pack(&x_train, stats(&std));
+    let model = softmax::fit_packed(
+        &xs,
         &y,
         k,
         &FitSettings { c, lbfgs: lb },
         choice.warm.as_deref(),
     );
-    let (pred, proba) = to_all_classes(&model.predict_proba(&xt.view()), &present, n_classes);
+    let (pred, proba) = to_all_classes(&predict_rows(&model, &x_test, &std), &present, n_classes);
     Ok(Fit {
         pred,
         proba,

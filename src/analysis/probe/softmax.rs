@@ -5,15 +5,19 @@
 //!   L(W, b) = Σ_i −log softmax(x_i W + b)[y_i] + ||W||² / (2C)
 //!
 //! minimised by our L-BFGS ([`super::lbfgs`]) on L/n, the scaling scikit-learn uses for its
-//! tolerance. Products run in f32 over fixed blocks of rows in parallel (objective and gradient
-//! in one pass per block); block partials are summed in f64 in block order, so the result does
-//! not depend on the number of threads.
+//! tolerance. The training matrix is packed once per fit ([`PackedRows`]); each evaluation is one
+//! pass over it, scores and gradient of a panel of rows computed while it is in cache, in f32
+//! over fixed blocks of rows in parallel; block partials are summed in f64 in block order, so
+//! the result does not depend on the number of threads.
 
 use ndarray::{s, Array2, ArrayView2, Axis};
 use rayon::prelude::*;
 
 use super::lbfgs::{minimize, LbfgsOptions};
 use crate::analysis::linalg::exp_f32;
+
+mod kernel;
+pub use kernel::{cross_entropy_grad_packed, PackedRows};
 
 /// Rows per block of the fused objective/gradient pass.
 const CHUNK: usize = 1024;
@@ -121,7 +125,8 @@ fn split_params(p: &[f64], d: usize, k: usize) -> (Array2<f32>, Vec<f32>) {
 }
 
 /// Σ_i cross-entropy and its gradient (W part row-major, then b) at the given parameters.
-/// Returns the summed cross-entropy (no penalty).
+/// Returns the summed cross-entropy (no penalty). Two matrix products per block of rows; the
+/// fit uses the one-pass [`cross_entropy_grad_packed`], and this is its check.
 pub fn cross_entropy_grad(
     x: &ArrayView2<f32>,
     y: &[u32],
@@ -183,7 +188,8 @@ pub fn cross_entropy_grad(
     ce
 }
 
-/// Fit on standardised `x` with labels `y` in `0..k`, optionally warm-started.
+/// Fit on standardised `x` with labels `y` in `0..k`, optionally warm-started. Packs `x`
+/// once ([`PackedRows`]) and runs [`fit_packed`].
 pub fn fit(
     x: &ArrayView2<f32>,
     y: &[u32],
@@ -191,7 +197,19 @@ pub fn fit(
     settings: &FitSettings,
     init: Option<&[f64]>,
 ) -> SoftmaxModel {
-    let (n, d) = x.dim();
+    fit_packed(&PackedRows::pack(x, None), y, k, settings, init)
+}
+
+/// Fit on packed standardised rows `x` with labels `y` in `0..k`, optionally warm-started:
+/// each objective evaluation is one pass over `x` ([`cross_entropy_grad_packed`]).
+pub fn fit_packed(
+    x: &PackedRows,
+    y: &[u32],
+    k: usize,
+    settings: &FitSettings,
+    init: Option<&[f64]>,
+) -> SoftmaxModel {
+    let (n, d) = (x.nrows(), x.ncols());
     let np = d * k + k;
     let x0 = match init {
         Some(p) if p.len() == np => p.to_vec(),
@@ -200,7 +218,7 @@ pub fn fit(
     let nf = n.max(1) as f64;
     let inv_c = 1.0 / settings.c;
     let objective = |p: &[f64], g: &mut [f64]| -> f64 {
-        let ce = cross_entropy_grad(x, y, k, p, g);
+        let ce = cross_entropy_grad_packed(x, y, k, p, g);
         let mut pen = 0f64;
         for (gi, pi) in g[..d * k].iter_mut().zip(&p[..d * k]) {
             pen += pi * pi;
