@@ -283,3 +283,186 @@ fn a_split_by_frame_is_noted_as_overstating_r2() {
     assert!(notes.contains("task 'y' is split by frame"), "{notes}");
     assert!(notes.contains("its R² is overstated"), "{notes}");
 }
+
+/// 10 speakers × 4 utterances × 50 frames, one layer per entry of `noise`: layer k is
+/// x + √noise[k]·n with x and n independent standard normal (8 features each), and the column
+/// `y` is `w·x + ε` as in [`linear_capture`] (|w|² = 1, Var ε = [`NOISE_VAR`]). The best
+/// linear prediction of y from layer k has R² = |w|² / (1 + noise[k]) / (|w|² + Var ε)
+/// (Cov(y, z) = w, Var z = (1 + noise[k]) I), so the R² of every layer is known. A `phone`
+/// column unrelated to y gives the control types: control R² about 0.
+fn fading_capture(dir: &Path, noise: &[f64]) {
+    let mut rng = ChaCha8Rng::seed_from_u64(23);
+    let d = 8;
+    let mut f = Frames::new(&["utterance", "speaker", "phone", "y"]);
+    let n = 10 * 4 * 50;
+    let mut layers = vec![Array2::<f32>::zeros((n, d)); noise.len()];
+    let mut r = 0;
+    for s in 0..10 {
+        for u in 0..4 {
+            let mut phone = "a";
+            for i in 0..50 {
+                let x: Vec<f64> = (0..d).map(|_| normal(&mut rng)).collect();
+                let y: f64 = x[..4].iter().map(|a| 0.5 * a).sum::<f64>()
+                    + NOISE_VAR.sqrt() * normal(&mut rng);
+                for (k, layer) in layers.iter_mut().enumerate() {
+                    for j in 0..d {
+                        layer[[r, j]] = (x[j] + noise[k].sqrt() * normal(&mut rng)) as f32;
+                    }
+                }
+                if i % 5 == 0 {
+                    phone = ["a", "b", "c"][rng.random_range(0..3)];
+                }
+                f.push([
+                    format!("s{s}u{u}"),
+                    format!("s{s}"),
+                    phone.to_string(),
+                    format!("{y:.7}"),
+                ]);
+                r += 1;
+            }
+        }
+    }
+    common::write_capture(dir, &f, &layers);
+}
+
+/// Theoretical R² of layer k of [`fading_capture`].
+fn fading_r2(noise: f64) -> f64 {
+    1.0 / (1.0 + noise) / (1.0 + NOISE_VAR)
+}
+
+fn probe_fading(noise: &[f64]) -> (serde_json::Value, String) {
+    let t = tempfile::tempdir().unwrap();
+    let cap = t.path().join("cap");
+    fading_capture(&cap, noise);
+    let out = t.path().join("out");
+    let r = run_text([
+        "probe",
+        common::s(&cap),
+        "--out",
+        common::s(&out),
+        "--quiet",
+    ]);
+    assert_eq!(r.code, 0, "{}", r.stderr);
+    (read_json(&out.join("probe.json")), r.stdout)
+}
+
+#[test]
+fn r2_fades_half_way_to_its_control_at_the_known_layer() {
+    // R² by construction (fading_capture): 0.2, 0.8, 0.64, 0.5, 0.32, 0.2 for layers 0-5.
+    // The peak is layer 1 (0.8), the control about 0, so half way is about 0.4: layer 3 (0.5)
+    // stays above, layer 4 (0.32) is the first after the peak below; layer 0 (0.2) is below
+    // too but before the peak, so it does not count.
+    let noise = [3.0, 0.0, 0.25, 0.6, 1.5, 3.0];
+    let want: Vec<f64> = noise.iter().map(|&v| fading_r2(v)).collect();
+    assert!((want[1] - 0.8).abs() < 1e-12 && (want[4] - 0.32).abs() < 1e-12);
+    let (j, stdout) = probe_fading(&noise);
+    // The measured R² follow the theory (tolerance as in the test above, common practice).
+    for (k, w) in want.iter().enumerate() {
+        let got = record(&j, k as u64, "y")["r2"].as_f64().unwrap();
+        assert!((got - w).abs() < 0.04, "layer {k}: R² {got} against {w}");
+    }
+    let f = &j["summary"]["r2_half_fall"][0];
+    assert_eq!(f["task"], "y");
+    assert_eq!(f["peak_layer"], 1);
+    assert_eq!(f["below_half_layer"], 4, "{f}");
+    assert_eq!(f["last_layer"], 5);
+    assert_eq!(f["base_is_control"], true);
+    let (peak, base, level) = (
+        f["peak_r2"].as_f64().unwrap(),
+        f["base_r2"].as_f64().unwrap(),
+        f["half_level"].as_f64().unwrap(),
+    );
+    assert_eq!(peak, record(&j, 1, "y")["r2"].as_f64().unwrap());
+    assert_eq!(base, record(&j, 1, "y")["control_r2"].as_f64().unwrap());
+    // The control memorises one random value per phone-in-context type; on 2 000 frames it
+    // keeps a little (about 0.1 here), far below the peak (bound common practice).
+    assert!(base.abs() < 0.2, "control R² {base}");
+    assert!((level - (peak + base) / 2.0).abs() < 1e-12);
+    assert!(
+        stdout.contains("y R² first falls below half way (") && stdout.contains(" at layer 4\n"),
+        "{stdout}"
+    );
+}
+
+#[test]
+fn r2_that_never_falls_half_way_says_how_far_it_stays_above() {
+    // R² by construction: 0.8, 0.73, 0.64 (fading_capture); half way to a control below 0.3
+    // is below 0.55, never reached.
+    let (j, stdout) = probe_fading(&[0.0, 0.1, 0.25]);
+    let f = &j["summary"]["r2_half_fall"][0];
+    assert_eq!(f["peak_layer"], 0);
+    assert!(f["below_half_layer"].is_null(), "{f}");
+    assert!(f["base_r2"].as_f64().unwrap() < 0.3, "{f}");
+    assert_eq!(f["last_layer"], 2);
+    assert!(
+        stdout.contains("y R² stays above half way (") && stdout.contains(" through layer 2\n"),
+        "{stdout}"
+    );
+}
+
+#[test]
+fn the_demo_f0_stays_above_half_way_to_its_control() {
+    // The shipped demo's final capture (seed 0): f0_hz R² 0.903, 0.799, 0.770, 0.735, 0.697,
+    // 0.657 by layer with a control R² near 0 (README), so half way is about 0.45 and is never
+    // reached: the summary says it stays above through the last layer.
+    let cap = Path::new(env!("CARGO_MANIFEST_DIR")).join("demo_activations/final");
+    let t = tempfile::tempdir().unwrap();
+    let out = t.path().join("out");
+    let r = run_text([
+        "probe",
+        common::s(&cap),
+        "--task",
+        "f0_hz",
+        "--seed",
+        "0",
+        "--out",
+        common::s(&out),
+        "--quiet",
+    ]);
+    assert_eq!(r.code, 0, "{}", r.stderr);
+    let j = read_json(&out.join("probe.json"));
+    let f = &j["summary"]["r2_half_fall"][0];
+    assert_eq!(f["task"], "f0_hz");
+    assert_eq!(f["peak_layer"], 0);
+    assert!(f["below_half_layer"].is_null(), "{f}");
+    assert_eq!(f["last_layer"], 5);
+    let level = f["half_level"].as_f64().unwrap();
+    let lowest = record(&j, 5, "f0_hz")["r2"].as_f64().unwrap();
+    assert!(
+        level < 0.5 && lowest > level + 0.1,
+        "level {level}, last R² {lowest}"
+    );
+    assert!(
+        r.stdout.contains("f0_hz R² stays above half way (")
+            && r.stdout.contains(" through layer 5\n"),
+        "{}",
+        r.stdout
+    );
+}
+
+#[test]
+fn the_report_page_says_where_r2_fades_under_the_headline() {
+    // The capture of the test above whose R² falls at layer 4 (fading_capture).
+    let t = tempfile::tempdir().unwrap();
+    let cap = t.path().join("cap");
+    fading_capture(&cap, &[3.0, 0.0, 0.25, 0.6, 1.5, 3.0]);
+    let out = t.path().join("out");
+    let r = run_text([
+        "report",
+        common::s(&cap),
+        "--out",
+        common::s(&out),
+        "--quiet",
+    ]);
+    assert_eq!(r.code, 0, "{}", r.stderr);
+    let page = std::fs::read_to_string(out.join("index.html")).unwrap();
+    let headline = page
+        .split("<section id=\"headline\">")
+        .nth(1)
+        .and_then(|h| h.split("</section>").next())
+        .unwrap();
+    assert!(
+        headline.contains("y R² first falls below half way (") && headline.contains(" at layer 4."),
+        "no fade sentence under the headline"
+    );
+}

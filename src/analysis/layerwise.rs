@@ -68,6 +68,7 @@ pub fn merge_probe(parts: Vec<ProbeReport>) -> Result<ProbeReport, ProbeError> {
     let (speaker_below_half_layer, speaker_half_level) =
         crate::analysis::probe::speaker_fall(&records);
     let best_r2 = crate::analysis::probe::regress::best_fits(&records, &tasks);
+    let r2_half_fall = crate::analysis::probe::regress::r2_half_falls(&records);
     Ok(ProbeReport {
         capture,
         options,
@@ -79,6 +80,7 @@ pub fn merge_probe(parts: Vec<ProbeReport>) -> Result<ProbeReport, ProbeError> {
             best,
             speaker_below_half_layer,
             speaker_half_level,
+            r2_half_fall,
         },
         notes,
         predictions: parts
@@ -254,6 +256,9 @@ mod tests {
             .collect();
         let merged = merge_probe(parts).unwrap();
         assert!(cap.layers.len() > 2);
+        // The demo's continuous columns are probed too, so where their R² fades is compared.
+        assert!(!whole.summary.r2_half_fall.is_empty());
+        assert!(!whole.summary.best_r2.is_empty());
         assert_eq!(
             serde_json::to_string(&merged).unwrap(),
             serde_json::to_string(&whole).unwrap()

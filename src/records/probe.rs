@@ -280,6 +280,30 @@ pub struct BestFit {
     pub ci_high: f64,
 }
 
+/// Where one continuous task's R² fades: its peak (the first layer of the highest R², as
+/// [`BestFit`]), the base it is measured against (the control R² at the peak layer, or 0, the
+/// R² of predicting the mean, when no control ran), the level half way between them, and the
+/// first layer after the peak whose R² is below that level.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+pub struct FitFall {
+    /// Task.
+    pub task: String,
+    /// Layer of the peak R².
+    pub peak_layer: usize,
+    /// Peak R².
+    pub peak_r2: f64,
+    /// Control R² at the peak layer (0 when no control ran).
+    pub base_r2: f64,
+    /// Whether `base_r2` is the control's (false: no control ran, the base is 0).
+    pub base_is_control: bool,
+    /// Half way between `peak_r2` and `base_r2`.
+    pub half_level: f64,
+    /// First layer after the peak with R² below `half_level` (None when it never falls).
+    pub below_half_layer: Option<usize>,
+    /// Last layer with a finite R² (how far "never falls" reaches).
+    pub last_layer: usize,
+}
+
 /// Short summary of a probe run.
 #[derive(Clone, Debug, Serialize, Deserialize)]
 pub struct ProbeSummary {
@@ -293,6 +317,9 @@ pub struct ProbeSummary {
     pub speaker_below_half_layer: Option<usize>,
     /// The midway value.
     pub speaker_half_level: Option<f64>,
+    /// Where each continuous task's R² falls half way to its control ([`FitFall`]).
+    #[serde(default)]
+    pub r2_half_fall: Vec<FitFall>,
 }
 
 /// Everything a probe run produced.

@@ -5,7 +5,7 @@ use crate::analysis::inspect::SCAN_ROWS;
 use crate::records::compare::{CompareReport, Estimator, Kernel, MatchBy, ProbeDelta};
 use crate::records::inspect::{ClassCount, Summary as InspectSummary};
 use crate::records::map::Summary as MapSummary;
-use crate::records::probe::ProbeReport;
+use crate::records::probe::{FitFall, ProbeReport};
 
 /// The text printed after a run: best layer per task and where speaker accuracy falls.
 pub fn probe(r: &ProbeReport) -> String {
@@ -77,7 +77,37 @@ pub fn probe(r: &ProbeReport) -> String {
         )),
         _ => {}
     }
+    for f in &r.summary.r2_half_fall {
+        s.push_str(&format!("  {}\n", r2_fall_sentence(f)));
+    }
     s
+}
+
+/// Where a continuous task's R² fades, in words: the first layer after its peak below half
+/// way to its control R², or how far it stays above that level.
+pub fn r2_fall_sentence(f: &FitFall) -> String {
+    let base = if !f.base_is_control {
+        "0 (no control ran)".to_string()
+    } else {
+        format!("its control R² {:.3}", f.base_r2)
+    };
+    let span = format!(
+        "half way ({:.3}) from its peak {:.3} at layer {} to {base}",
+        f.half_level, f.peak_r2, f.peak_layer
+    );
+    match f.below_half_layer {
+        Some(l) => format!("{} R² first falls below {span} at layer {l}", f.task),
+        None if f.last_layer == f.peak_layer => {
+            format!(
+                "{} R² peaks at the last layer probed ({})",
+                f.task, f.peak_layer
+            )
+        }
+        None => format!(
+            "{} R² stays above {span} through layer {}",
+            f.task, f.last_layer
+        ),
+    }
 }
 
 /// The text summary printed after a comparison: pairing, most changed matching layers,

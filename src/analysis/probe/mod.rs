@@ -24,7 +24,7 @@ use serde::Serialize;
 
 use crate::capture::{Capture, CaptureError, FrameTable};
 pub use crate::records::probe::{
-    BestConfusion, BestFit, BestLayer, FoldSides, ProbeRecord, ProbeReport, ProbeSummary,
+    BestConfusion, BestFit, BestLayer, FitFall, FoldSides, ProbeRecord, ProbeReport, ProbeSummary,
     TaskPredictions, TaskSetup,
 };
 use crate::records::CaptureRef;
@@ -217,6 +217,7 @@ pub fn run(
     let class_setups: Vec<TaskSetup> = plans.into_iter().map(|p| p.setup).collect();
     let setups = task_setups(class_setups, all.regress, &records);
     let best_r2 = regress::best_fits(&records, &setups);
+    let r2_half_fall = regress::r2_half_falls(&records);
     let options = options_value(cap, opts, common, &layers)?;
     Ok(ProbeReport {
         capture: CaptureRef {
@@ -232,6 +233,7 @@ pub fn run(
             best_r2,
             speaker_below_half_layer,
             speaker_half_level,
+            r2_half_fall,
         },
         notes,
         predictions,

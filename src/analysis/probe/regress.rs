@@ -18,7 +18,7 @@ use rand_chacha::ChaCha8Rng;
 
 use crate::analysis::seed::mix;
 use crate::capture::{Capture, NumericTask, UNLABELLED};
-use crate::records::probe::{BestFit, ProbeRecord, TaskPredictions, TaskSetup};
+use crate::records::probe::{BestFit, FitFall, ProbeRecord, TaskPredictions, TaskSetup};
 use crate::select::pool::{self, Items, UttIndex};
 use crate::select::split::{self, Fold, SplitKind, SplitOptions};
 
@@ -518,6 +518,62 @@ pub fn best_fits(records: &[ProbeRecord], tasks: &[TaskSetup]) -> Vec<BestFit> {
             })
         })
         .collect()
+}
+
+/// Where each continuous task's R² fades ([`FitFall`]), in the order the tasks first appear
+/// in `records`. Reads records only, so a run over every layer and the merge of runs over one
+/// layer each give the same answer.
+pub fn r2_half_falls(records: &[ProbeRecord]) -> Vec<FitFall> {
+    let mut tasks: Vec<&str> = Vec::new();
+    for r in records.iter().filter(|r| r.is_continuous()) {
+        if !tasks.contains(&r.task.as_str()) {
+            tasks.push(&r.task);
+        }
+    }
+    tasks
+        .into_iter()
+        .filter_map(|t| r2_half_fall(records, t))
+        .collect()
+}
+
+/// [`FitFall`] of one task: the peak is the first layer of the highest finite R², the base the
+/// control R² there (0 when the control did not run), the level half way between them, and
+/// the fall the first later layer below that level. The control, not the lowest R² after the
+/// peak as for speaker accuracy, is the floor: R² has a natural no-information level, and a
+/// lowest-after-peak floor would mark any decline, however small, as a fall (common practice
+/// for a readable marker, not a test). None with fewer than two finite R².
+pub fn r2_half_fall(records: &[ProbeRecord], task: &str) -> Option<FitFall> {
+    let mut pts: Vec<&ProbeRecord> = records
+        .iter()
+        .filter(|r| r.task == task && r.is_continuous() && r.r2.is_finite())
+        .collect();
+    pts.sort_by_key(|r| r.layer);
+    if pts.len() < 2 {
+        return None;
+    }
+    let mut peak = 0;
+    for (i, r) in pts.iter().enumerate() {
+        if r.r2 > pts[peak].r2 {
+            peak = i;
+        }
+    }
+    let top = pts[peak];
+    let base_is_control = top.control_r2.is_finite();
+    let base_r2 = if base_is_control { top.control_r2 } else { 0.0 };
+    let half_level = top.r2 - (top.r2 - base_r2) / 2.0;
+    Some(FitFall {
+        task: task.to_string(),
+        peak_layer: top.layer,
+        peak_r2: top.r2,
+        base_r2,
+        base_is_control,
+        half_level,
+        below_half_layer: pts[peak + 1..]
+            .iter()
+            .find(|r| r.r2 < half_level)
+            .map(|r| r.layer),
+        last_layer: pts[pts.len() - 1].layer,
+    })
 }
 
 #[cfg(test)]

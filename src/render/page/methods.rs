@@ -161,7 +161,7 @@ fn regress_sentence(p: &mut String, name: &str, recs: &[ProbeRecord]) {
     }
     let _ = write!(
         p,
-        "On “{name}”, each continuous column ({}) was probed on every layer by ridge regression on standardised features (target standardised on the training side, penalty chosen from the same grid on the same kind of inner split, same outer folds as the classifiers); frames without a value were left out. Its held-out R² is shown with a 95% cluster-bootstrap interval over test speakers, beside the error of predicting the training mean (RMSE in the table, its R² dashed in the figure); R² measures how much of the value a linear map of the layer recovers, not whether the model uses it. ",
+        "On “{name}”, each continuous column ({}) was probed on every layer by ridge regression on standardised features (target standardised on the training side, penalty chosen from the same grid on the same kind of inner split, same outer folds as the classifiers); frames without a value were left out. Its held-out R² is shown with a 95% cluster-bootstrap interval over test speakers, beside the error of predicting the training mean (RMSE in the table, its R² dashed in the figure); R² measures how much of the value a linear map of the layer recovers, not whether the model uses it. Where a column fades (under the headline figure) is the first layer after its peak R² whose R² is below half way between the peak and the control R² at the peak layer (0 when no control ran); the floor is the control, not the lowest R² after the peak as for speaker accuracy, so a small decline is not called a fall. ",
         cols.join(", ")
     );
 }

@@ -266,13 +266,22 @@ fn headline_html(o: &mut String, inp: &ReportInputs) {
     o.push_str("<section id=\"headline\"><h2>Phone and speaker across layers</h2>");
     let mut any = false;
     for sec in &inp.captures {
+        let fades = fade_sentences(&sec.probe);
         if let Some((svg, caption)) = headline_svg(sec) {
             any = true;
             let _ = write!(
                 o,
-                "<figure class=\"headline\">{svg}<figcaption><b>{}.</b> Probe accuracy (solid, with 95% interval) and k-NN purity (dashed) per layer for phone and speaker. {}</figcaption></figure>",
+                "<figure class=\"headline\">{svg}<figcaption><b>{}.</b> Probe accuracy (solid, with 95% interval) and k-NN purity (dashed) per layer for phone and speaker. {}{}</figcaption></figure>",
                 esc(&sec.summary.name),
-                esc(&caption)
+                esc(&caption),
+                esc(&fades)
+            );
+        } else if !fades.is_empty() {
+            let _ = write!(
+                o,
+                "<p><b>{}.</b>{}</p>",
+                esc(&sec.summary.name),
+                esc(&fades)
             );
         }
     }
@@ -287,6 +296,15 @@ fn headline_html(o: &mut String, inp: &ReportInputs) {
         figure_img(o, f);
     }
     o.push_str("</section>");
+}
+
+/// Where each continuous column's R² fades (half way to its control, see the methods), one
+/// sentence each, each after a space; empty without continuous records.
+fn fade_sentences(probe: &[crate::records::probe::ProbeRecord]) -> String {
+    crate::analysis::probe::regress::r2_half_falls(probe)
+        .iter()
+        .map(|f| format!(" {}.", crate::render::summary::r2_fall_sentence(f)))
+        .collect()
 }
 
 /// The layer-map section: the interactive explorer when maps exist, then the map figures.
