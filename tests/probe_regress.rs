@@ -125,7 +125,7 @@ fn r2_matches_the_known_share_of_explained_variance() {
     assert!((pr * pr - r2).abs() < 0.02, "r {pr}, R² {r2}");
     // Types (phone in context) carry no information about y: the control scores about 0.
     let c = r0["control_r2"].as_f64().unwrap();
-    assert!(c < 0.1, "control R² {c}");
+    assert!(c.abs() < 0.06, "control R² {c}");
     assert!((r0["selectivity"].as_f64().unwrap() - (r2 - c)).abs() < 1e-12);
     assert!(r0["accuracy"].is_null() && r0["majority_baseline"].is_null());
     // Layer 1 holds nothing about y.
@@ -374,9 +374,10 @@ fn r2_fades_half_way_to_its_control_at_the_known_layer() {
     );
     assert_eq!(peak, record(&j, 1, "y")["r2"].as_f64().unwrap());
     assert_eq!(base, record(&j, 1, "y")["control_r2"].as_f64().unwrap());
-    // The control memorises one random value per phone-in-context type; on 2 000 frames it
-    // keeps a little (about 0.1 here), far below the peak (bound common practice).
-    assert!(base.abs() < 0.2, "control R² {base}");
+    // The phone-in-context types carry nothing about the features, so the control scores
+    // about 0 (-0.03 here; bound common practice). Drawing the control's values afresh in each
+    // fold scored 0.09-0.24 here: each fold's own control mean counted as explained.
+    assert!(base.abs() < 0.06, "control R² {base}");
     assert!((level - (peak + base) / 2.0).abs() < 1e-12);
     assert!(
         stdout.contains("y R² first falls below half way (") && stdout.contains(" at layer 4\n"),

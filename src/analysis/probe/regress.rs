@@ -9,8 +9,8 @@
 //! frame pooling); frames with no value (empty, `nan`, `inf`) are left out of the task.
 //! The control follows Hewitt & Liang (2019) as the classifier's does ([`super::control`]):
 //! every type (phone in context, or the `--control-by` column's value; the value itself when
-//! the capture has neither) gets one value drawn, with the run's seed, from the fold's training
-//! values, and the same ridge (same penalty, same split) is fitted to it.
+//! the capture has neither) gets one value drawn once per task, with the run's seed, from the column's
+//! values on the task's items (the same in every fold), and the same ridge (same penalty, same split) is fitted to it.
 
 use rand::seq::SliceRandom;
 use rand::{Rng, SeedableRng};
@@ -388,19 +388,27 @@ fn probe_fold(
         s.test_frames.push(p.items.members(i)[0]);
     }
     if let Some(types) = &p.types {
-        // One value per type drawn from this fold's training values, with the seed; the same
-        // ridge (same penalty) fitted to it (Hewitt & Liang 2019).
-        let n_types = types.iter().map(|&t| t as usize + 1).max().unwrap_or(0);
-        let mut rng = ChaCha8Rng::seed_from_u64(mix(seed, 400 + tfn as u64));
-        let drawn: Vec<f64> = (0..n_types)
-            .map(|_| ytr[rng.random_range(0..ytr.len())])
-            .collect();
+        // One value per type, drawn once per task with the seed from the column's values on
+        // the task's items (as the classifier's control draws its labels once per task from
+        // the class frequencies), so every fold sees the same control; the same ridge (same
+        // penalty) is fitted to it (Hewitt & Liang 2019). Drawing per fold instead gives each
+        // fold its own control mean, which the pooled R² would count as explained.
+        let drawn = control_values(types, &p.value, mix(seed, 400 + (tf.0 * 1000) as u64));
         let ctr: Vec<f64> = f.train.iter().map(|&i| drawn[types[i] as usize]).collect();
         let cte: Vec<f64> = f.test.iter().map(|&i| drawn[types[i] as usize]).collect();
         s.control_pred.extend(fit(&ctr)?);
         s.control_truth.extend(cte);
     }
     Ok(())
+}
+
+/// One value per control type, drawn with `seed` from `value` (every item's value).
+fn control_values(types: &[u32], value: &[f64], seed: u64) -> Vec<f64> {
+    let n_types = types.iter().map(|&t| t as usize + 1).max().unwrap_or(0);
+    let mut rng = ChaCha8Rng::seed_from_u64(seed);
+    (0..n_types)
+        .map(|_| value[rng.random_range(0..value.len())])
+        .collect()
 }
 
 impl RegressScores {

@@ -192,7 +192,7 @@ fn control_sentence(p: &mut String, recs: &[ProbeRecord]) {
     {
         let _ = write!(
             p,
-            "For a continuous column each type instead gets one value drawn from the fold's training values, the same ridge is fitted to it, and selectivity is R² minus control R². "
+            "For a continuous column each type instead gets one value drawn once (the same in every fold) from the column's values, the same ridge is fitted to it, and selectivity is R² minus control R². "
         );
     }
 }
