@@ -12,7 +12,8 @@
 //! result does not depend on the number of threads.
 //!
 //! On x86-64 with AVX-512F the panel products run in 512-bit registers (8 rows × up to 48
-//! classes of accumulators); elsewhere a portable loop over the same layout is used.
+//! classes of accumulators); with AVX2 and FMA but no AVX-512, in 256-bit registers (half a
+//! panel × up to 24 classes); elsewhere a portable loop over the same layout is used.
 
 use rayon::prelude::*;
 
@@ -197,6 +198,12 @@ fn scores(panel: &[f32], d: usize, w: &[f32], b: &[f32], kp: usize, z: &mut [f32
         unsafe { avx512::scores(panel, d, w, b, kp, z) };
         return;
     }
+    #[cfg(target_arch = "x86_64")]
+    if avx2::available() {
+        // SAFETY: AVX2 and FMA are present; slice lengths are checked above and by the callers.
+        unsafe { avx2::scores(panel, d, w, b, kp, z) };
+        return;
+    }
     portable_scores(panel, d, w, b, kp, z);
 }
 
@@ -207,6 +214,12 @@ fn accumulate(panel: &[f32], d: usize, g: &[f32], kp: usize, gw: &mut [f32]) {
     if std::arch::is_x86_feature_detected!("avx512f") {
         // SAFETY: as in `scores`.
         unsafe { avx512::accumulate(panel, d, g, kp, gw) };
+        return;
+    }
+    #[cfg(target_arch = "x86_64")]
+    if avx2::available() {
+        // SAFETY: as in `scores`.
+        unsafe { avx2::accumulate(panel, d, g, kp, gw) };
         return;
     }
     portable_accumulate(panel, d, g, kp, gw);
@@ -358,6 +371,148 @@ mod avx512 {
     }
 }
 
+#[cfg(target_arch = "x86_64")]
+mod avx2 {
+    //! The same panel products in 256-bit registers (AVX2 with FMA, for machines without
+    //! AVX-512): half a panel (4 rows) at a time, so that the accumulators, the weights and the
+    //! broadcast values fit in the 16 registers.
+    use super::MR;
+    use std::arch::x86_64::*;
+
+    /// f32 values per register.
+    const L: usize = 8;
+    /// Rows of a panel handled per tile.
+    const RH: usize = 4;
+    // `accumulate_tile` spells out the four rows, and a panel is a whole number of tiles.
+    const _: () = assert!(RH == 4 && MR % RH == 0);
+
+    pub fn available() -> bool {
+        std::arch::is_x86_feature_detected!("avx2") && std::arch::is_x86_feature_detected!("fma")
+    }
+
+    /// # Safety
+    /// AVX2 and FMA must be available; `panel` is d × MR, `w` d × kp, `b` kp, `z` MR × kp, and
+    /// kp is a multiple of 8.
+    #[target_feature(enable = "avx2,fma")]
+    pub unsafe fn scores(panel: &[f32], d: usize, w: &[f32], b: &[f32], kp: usize, z: &mut [f32]) {
+        for r0 in (0..MR).step_by(RH) {
+            let mut c0 = 0;
+            while c0 < kp {
+                let nv = ((kp - c0) / L).min(3);
+                let (xp, wp, bp, zp) = (
+                    panel.as_ptr().add(r0),
+                    w.as_ptr().add(c0),
+                    b.as_ptr().add(c0),
+                    z.as_mut_ptr().add(r0 * kp + c0),
+                );
+                match nv {
+                    3 => scores_tile::<3>(xp, d, wp, bp, kp, zp),
+                    2 => scores_tile::<2>(xp, d, wp, bp, kp, zp),
+                    _ => scores_tile::<1>(xp, d, wp, bp, kp, zp),
+                }
+                c0 += nv * L;
+            }
+        }
+    }
+
+    /// RH rows × NV registers of scores; `xp` points at the tile's first row in feature 0.
+    #[target_feature(enable = "avx2,fma")]
+    unsafe fn scores_tile<const NV: usize>(
+        xp: *const f32,
+        d: usize,
+        wp: *const f32,
+        bp: *const f32,
+        kp: usize,
+        zp: *mut f32,
+    ) {
+        let mut acc = [[_mm256_setzero_ps(); NV]; RH];
+        for row in acc.iter_mut() {
+            for (v, a) in row.iter_mut().enumerate() {
+                *a = _mm256_loadu_ps(bp.add(v * L));
+            }
+        }
+        for j in 0..d {
+            let wr = wp.add(j * kp);
+            let mut wv = [_mm256_setzero_ps(); NV];
+            for (v, x) in wv.iter_mut().enumerate() {
+                *x = _mm256_loadu_ps(wr.add(v * L));
+            }
+            let xr = xp.add(j * MR);
+            for (r, row) in acc.iter_mut().enumerate() {
+                let xb = _mm256_broadcast_ss(&*xr.add(r));
+                for (a, &x) in row.iter_mut().zip(&wv) {
+                    *a = _mm256_fmadd_ps(xb, x, *a);
+                }
+            }
+        }
+        for (r, row) in acc.iter().enumerate() {
+            for (v, a) in row.iter().enumerate() {
+                _mm256_storeu_ps(zp.add(r * kp + v * L), *a);
+            }
+        }
+    }
+
+    /// # Safety
+    /// AVX2 and FMA must be available; `panel` is d × MR, `g` MR × kp, `gw` d × kp, and kp is
+    /// a multiple of 8.
+    #[target_feature(enable = "avx2,fma")]
+    pub unsafe fn accumulate(panel: &[f32], d: usize, g: &[f32], kp: usize, gw: &mut [f32]) {
+        for r0 in (0..MR).step_by(RH) {
+            let mut c0 = 0;
+            while c0 < kp {
+                let nv = ((kp - c0) / L).min(2);
+                let (xp, gp, op) = (
+                    panel.as_ptr().add(r0),
+                    g.as_ptr().add(r0 * kp + c0),
+                    gw.as_mut_ptr().add(c0),
+                );
+                match nv {
+                    2 => accumulate_tile::<2>(xp, d, gp, kp, op),
+                    _ => accumulate_tile::<1>(xp, d, gp, kp, op),
+                }
+                c0 += nv * L;
+            }
+        }
+    }
+
+    /// `gw[j, tile] += Σ_r x[j, r] g[r, tile]` over RH rows and NV registers of classes.
+    #[target_feature(enable = "avx2,fma")]
+    unsafe fn accumulate_tile<const NV: usize>(
+        xp: *const f32,
+        d: usize,
+        gp: *const f32,
+        kp: usize,
+        op: *mut f32,
+    ) {
+        let mut gv = [[_mm256_setzero_ps(); NV]; RH];
+        for (r, row) in gv.iter_mut().enumerate() {
+            for (v, a) in row.iter_mut().enumerate() {
+                *a = _mm256_loadu_ps(gp.add(r * kp + v * L));
+            }
+        }
+        for j in 0..d {
+            let xr = xp.add(j * MR);
+            let xb = [
+                _mm256_broadcast_ss(&*xr),
+                _mm256_broadcast_ss(&*xr.add(1)),
+                _mm256_broadcast_ss(&*xr.add(2)),
+                _mm256_broadcast_ss(&*xr.add(3)),
+            ];
+            let orow = op.add(j * kp);
+            // v indexes the register tile across rows (gv[r][v]), so a range loop is clearest
+            #[allow(clippy::needless_range_loop)]
+            for v in 0..NV {
+                // two chains (rows 0 and 2, rows 1 and 3) to halve the dependency latency
+                let a = _mm256_fmadd_ps(xb[0], gv[0][v], _mm256_loadu_ps(orow.add(v * L)));
+                let c = _mm256_mul_ps(xb[1], gv[1][v]);
+                let a = _mm256_fmadd_ps(xb[2], gv[2][v], a);
+                let c = _mm256_fmadd_ps(xb[3], gv[3][v], c);
+                _mm256_storeu_ps(orow.add(v * L), _mm256_add_ps(a, c));
+            }
+        }
+    }
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -426,6 +581,38 @@ mod tests {
         portable_accumulate(&packed.data, d, &z1, kp, &mut g2);
         for (a, b) in g1.iter().zip(&g2) {
             assert!((a - b).abs() < 1e-5 * (1.0 + b.abs()), "{a} vs {b}");
+        }
+    }
+
+    /// The AVX2 loops agree with the portable ones on one panel (run wherever AVX2 and FMA are
+    /// present, also on machines whose dispatch picks AVX-512), for class counts that use
+    /// one, two and three registers per tile.
+    #[cfg(target_arch = "x86_64")]
+    #[test]
+    fn avx2_and_portable_panel_products_agree() {
+        if !avx2::available() {
+            eprintln!("skipped: this machine has no AVX2 with FMA");
+            return;
+        }
+        for &(d, k) in &[(29usize, 70usize), (5, 3), (40, 112), (17, 20)] {
+            let kp = k.div_ceil(LANES) * LANES;
+            let (x, _, p) = random_case(MR, d, k, 7);
+            let packed = PackedRows::pack(&x.view(), None);
+            let pr = Params::new(&p, d, k);
+            let (mut z1, mut z2) = (vec![0f32; MR * kp], vec![0f32; MR * kp]);
+            // SAFETY: the features were checked just above; shapes as the kernel expects.
+            unsafe { avx2::scores(&packed.data, d, &pr.w, &pr.b, kp, &mut z1) };
+            portable_scores(&packed.data, d, &pr.w, &pr.b, kp, &mut z2);
+            for (a, b) in z1.iter().zip(&z2) {
+                assert!((a - b).abs() < 1e-5 * (1.0 + b.abs()), "d {d} k {k}: {a} vs {b}");
+            }
+            let (mut g1, mut g2) = (vec![0.5f32; d * kp], vec![0.5f32; d * kp]);
+            // SAFETY: as above.
+            unsafe { avx2::accumulate(&packed.data, d, &z1, kp, &mut g1) };
+            portable_accumulate(&packed.data, d, &z1, kp, &mut g2);
+            for (a, b) in g1.iter().zip(&g2) {
+                assert!((a - b).abs() < 1e-5 * (1.0 + b.abs()), "d {d} k {k}: {a} vs {b}");
+            }
         }
     }
 
