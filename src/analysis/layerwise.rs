@@ -315,7 +315,9 @@ mod tests {
         ];
         for (a, b, opts) in cases {
             let whole = compare::run(a, b, &opts, &common, &p, None).unwrap();
-            let rest = compare::run_without_cka(a, b, &opts, &common, &p, None).unwrap();
+            let rest =
+                compare::run_without_cka(a, b, &opts, &common, &p, compare::DeltaSource::Fit)
+                    .unwrap();
             assert!(rest.cka.is_empty());
             // Rows in reverse order: the merge places them by layer.
             let rows = a
@@ -394,8 +396,15 @@ mod tests {
         assert_eq!(row.records.len(), ids.len() - 2);
         assert_eq!(row.records[0].cka, 1.0, "the diagonal");
         // Without its rows the merge refuses rather than leaving cells out.
-        let rest = compare::run_without_cka(&cap, &cap, &opts, &common, &Progress::hidden(), None)
-            .unwrap();
+        let rest = compare::run_without_cka(
+            &cap,
+            &cap,
+            &opts,
+            &common,
+            &Progress::hidden(),
+            compare::DeltaSource::Fit,
+        )
+        .unwrap();
         assert!(merge_cka(rest, vec![row]).is_err());
     }
 

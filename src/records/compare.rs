@@ -124,6 +124,9 @@ pub struct CompareReport {
     pub kernel: Kernel,
     /// HSIC estimator used.
     pub estimator: Estimator,
+    /// The probe deltas were left to the caller, who holds both captures' probe predictions
+    /// (a report's assembly; see [`crate::analysis::compare::DeltaSource::Deferred`]).
+    pub deltas_deferred: bool,
 }
 
 impl CompareReport {

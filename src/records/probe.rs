@@ -167,8 +167,9 @@ impl ProbeRecord {
 }
 
 /// The test predictions behind one record, pooled over folds in fold order: what `compare`
-/// needs to pair two captures' probes on the same items (not written to disk).
-#[derive(Clone, Debug, Default)]
+/// needs to pair two captures' probes on the same items (not written to the probe's records;
+/// a report's probe parts carry them to its assembly).
+#[derive(Clone, Debug, Default, Serialize, Deserialize)]
 pub struct TaskPredictions {
     /// Layer number.
     pub layer: usize,

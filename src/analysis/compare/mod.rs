@@ -180,8 +180,45 @@ pub fn run(
         .map(|i| cka_row_at(a, b, &prep, opts, i, &mut cache, &step))
         .collect::<Result<Vec<_>, _>>()?;
     drop(step);
-    let rep = without_cka(a, b, prep, opts, common, progress, probes)?;
+    let source = match probes {
+        Some(p) => DeltaSource::Probes(p),
+        None => DeltaSource::Fit,
+    };
+    let rep = without_cka(a, b, prep, opts, common, progress, source)?;
     crate::analysis::layerwise::merge_cka(rep, rows)
+}
+
+/// Where a comparison's probe deltas come from.
+#[derive(Clone, Copy)]
+pub enum DeltaSource<'a> {
+    /// Probes fitted by the comparison itself (the probe stage run on both captures when
+    /// every frame is paired in order, else the paired rows with the same split rule).
+    Fit,
+    /// The probe stage's reports of both captures (their pooled test predictions).
+    Probes([&'a ProbeReport; 2]),
+    /// Left to the caller when every frame is paired in order: the report's `deltas_deferred`
+    /// is set, and [`deltas_from_predictions`] gives the deltas from the probe stage's
+    /// predictions (a report's assembly holds both captures' probe parts). Otherwise as `Fit`.
+    Deferred,
+}
+
+/// The probe deltas of a comparison from both captures' pooled test predictions, paired
+/// (layer, task) by (layer, task) for the delta tasks; `tasks` is the probe stage's task
+/// list (the order gives each task's bootstrap seed, as in the probe stage). The test items
+/// must be the same on both sides.
+#[allow(clippy::too_many_arguments)]
+pub fn deltas_from_predictions(
+    a: &Capture,
+    b: &Capture,
+    tasks: &[String],
+    pred_a: &[crate::records::probe::TaskPredictions],
+    pred_b: &[crate::records::probe::TaskPredictions],
+    opts: &CompareOptions,
+    seed: u64,
+    notes: &mut Vec<String>,
+) -> Result<Vec<ProbeDelta>, CompareError> {
+    let wanted = probe_deltas::delta_task_names(a, b, opts)?;
+    probe_deltas::from_predictions(tasks, &wanted, [pred_a, pred_b], opts, seed, notes)
 }
 
 /// The comparison without its CKA matrix (`cka` empty): the pairing, notes, options and probe
@@ -193,10 +230,10 @@ pub fn run_without_cka(
     opts: &CompareOptions,
     common: &CommonOptions,
     progress: &Progress,
-    probes: Option<[&ProbeReport; 2]>,
+    source: DeltaSource,
 ) -> Result<CompareReport, CompareError> {
     let prep = prepare(a, b, opts, common)?;
-    without_cka(a, b, prep, opts, common, progress, probes)
+    without_cka(a, b, prep, opts, common, progress, source)
 }
 
 /// One row of the CKA matrix: layer number `layer` of A against every selected layer of B,
@@ -295,7 +332,7 @@ fn without_cka(
     opts: &CompareOptions,
     common: &CommonOptions,
     progress: &Progress,
-    probes: Option<[&ProbeReport; 2]>,
+    source: DeltaSource,
 ) -> Result<CompareReport, CompareError> {
     let ids_a: Vec<usize> = prep.sel_a.iter().map(|&i| a.layers[i].id).collect();
     let ids_b: Vec<usize> = prep.sel_b.iter().map(|&i| b.layers[i].id).collect();
@@ -307,7 +344,7 @@ fn without_cka(
             pairing.paired, pairing.dropped_a, pairing.dropped_b
         ));
     }
-    let probe_delta = if opts.probe {
+    let (probe_delta, deltas_deferred) = if opts.probe {
         let layers = LayerPair {
             a,
             b,
@@ -321,9 +358,12 @@ fn without_cka(
             common,
             progress,
         };
-        probe_deltas::all(&ctx, probes, &mut notes)?
+        match probe_deltas::all(&ctx, source, &mut notes)? {
+            Some(d) => (d, false),
+            None => (Vec::new(), true),
+        }
     } else {
-        Vec::new()
+        (Vec::new(), false)
     };
     let options = serde_json::to_value(opts).map_err(|e| CompareError::Internal(e.to_string()))?;
     Ok(CompareReport {
@@ -337,6 +377,7 @@ fn without_cka(
         options,
         kernel: opts.kernel,
         estimator: opts.estimator,
+        deltas_deferred,
     })
 }
 

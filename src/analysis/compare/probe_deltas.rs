@@ -1,5 +1,6 @@
 //! Probe deltas between the two captures of a comparison, on one split for the whole run:
-//! from the probe stage's own test predictions when the caller ran it (`report`), else by
+//! from the probe stage's own test predictions when the caller ran it or will hand them
+//! over (a report's assembly, from its probe parts), else by
 //! running the probe stage on both captures here (the paired frames are all the frames, in
 //! order: `compare` alone gets the split, folds, seeds and fits `probe` would use), else, when
 //! frames are paired by utterance or sampled, on the paired rows with the same split rule and
@@ -15,7 +16,8 @@ use crate::select::split::{self, FoldCount};
 use crate::{CommonOptions, Progress};
 
 use super::delta::{self, FitPredict, PairedCorrect, ProbeDelta};
-use super::{CompareError, CompareOptions, LayerPair, Pairing};
+use super::{CompareError, CompareOptions, DeltaSource, LayerPair, Pairing};
+use crate::records::probe::TaskPredictions;
 
 /// What the delta step needs of the comparison.
 pub(super) struct Context<'a> {
@@ -27,12 +29,12 @@ pub(super) struct Context<'a> {
 }
 
 /// Probe deltas on every layer number selected in both captures (see the module comment for
-/// where the predictions come from).
+/// where the predictions come from); None when they are deferred to the caller.
 pub(super) fn all(
     ctx: &Context,
-    probes: Option<[&ProbeReport; 2]>,
+    source: DeltaSource,
     notes: &mut Vec<String>,
-) -> Result<Vec<ProbeDelta>, CompareError> {
+) -> Result<Option<Vec<ProbeDelta>>, CompareError> {
     let l = ctx.layers;
     let (a, b) = (l.a, l.b);
     let shared: Vec<(usize, usize)> = l
@@ -46,10 +48,10 @@ pub(super) fn all(
         .collect();
     if shared.is_empty() {
         notes.push("probe deltas skipped: no layer number is present in both captures".into());
-        return Ok(Vec::new());
+        return Ok(Some(Vec::new()));
     }
-    if let Some([pa, pb]) = probes {
-        return from_probes(pa, pb, ctx.opts, ctx.common.seed, notes);
+    if let DeltaSource::Probes([pa, pb]) = source {
+        return from_probes(pa, pb, ctx.opts, ctx.common.seed, notes).map(Some);
     }
     let p = ctx.pairing;
     let n = a.n_frames();
@@ -58,6 +60,9 @@ pub(super) fn all(
         && ctx.opts.max_frames.is_none_or(|m| m >= n)
         && p.rows_a.iter().enumerate().all(|(i, &r)| i == r)
         && p.rows_b.iter().enumerate().all(|(i, &r)| i == r);
+    if identity && matches!(source, DeltaSource::Deferred) {
+        return Ok(None);
+    }
     if identity {
         let popts = ProbeOptions {
             tasks: delta_task_names(a, b, ctx.opts)?,
@@ -76,7 +81,7 @@ pub(super) fn all(
         };
         let (pa, pb) = (run(a)?, run(b)?);
         notes.extend(pa.notes.iter().map(|n| format!("probe: {n}")));
-        return from_probes(&pa, &pb, ctx.opts, ctx.common.seed, notes);
+        return from_probes(&pa, &pb, ctx.opts, ctx.common.seed, notes).map(Some);
     }
     let keep = crate::select::sample::uniform_sorted(
         p.paired,
@@ -85,7 +90,7 @@ pub(super) fn all(
     );
     let ra: Vec<usize> = keep.iter().map(|&k| p.rows_a[k]).collect();
     let rb: Vec<usize> = keep.iter().map(|&k| p.rows_b[k]).collect();
-    probe_deltas(a, b, &shared, &ra, &rb, ctx, notes)
+    probe_deltas(a, b, &shared, &ra, &rb, ctx, notes).map(Some)
 }
 
 /// Deltas from the two probe reports' pooled test predictions, (layer, task) by (layer, task)
@@ -97,20 +102,39 @@ fn from_probes(
     seed: u64,
     notes: &mut Vec<String>,
 ) -> Result<Vec<ProbeDelta>, CompareError> {
+    let tasks: Vec<String> = pa.tasks.iter().map(|t| t.task.clone()).collect();
+    from_predictions(
+        &tasks,
+        &tasks,
+        [&pa.predictions, &pb.predictions],
+        opts,
+        seed,
+        notes,
+    )
+}
+
+/// Deltas from two captures' pooled test predictions, for the tasks of `tasks` (the probe
+/// stage's list, whose order gives the bootstrap seeds) that `wanted` names.
+pub(super) fn from_predictions(
+    tasks: &[String],
+    wanted: &[String],
+    [pred_a, pred_b]: [&[TaskPredictions]; 2],
+    opts: &CompareOptions,
+    seed: u64,
+    notes: &mut Vec<String>,
+) -> Result<Vec<ProbeDelta>, CompareError> {
     let dopts = delta::DeltaOptions {
         n_boot: opts.bootstrap,
         level: 0.95,
     };
-    let tasks: Vec<String> = pa.tasks.iter().map(|t| t.task.clone()).collect();
-    for t in &tasks {
-        if let Some(q) = pa.predictions.iter().find(|q| &q.task == t) {
+    for t in tasks.iter().filter(|t| wanted.contains(t)) {
+        if let Some(q) = pred_a.iter().find(|q| &q.task == t) {
             note_few_clusters(q.cluster.iter().copied(), t, t == "speaker", notes);
         }
     }
     let mut out = Vec::new();
-    for qa in &pa.predictions {
-        let Some(qb) = pb
-            .predictions
+    for qa in pred_a.iter().filter(|q| wanted.contains(&q.task)) {
+        let Some(qb) = pred_b
             .iter()
             .find(|q| q.layer == qa.layer && q.task == qa.task)
         else {
@@ -202,7 +226,7 @@ fn plan_deltas(
 
 /// The delta tasks (default: A's default tasks that B carries too, and `speaker`), each
 /// checked to be a label column of both captures.
-fn delta_task_names(
+pub(super) fn delta_task_names(
     a: &Capture,
     b: &Capture,
     opts: &CompareOptions,

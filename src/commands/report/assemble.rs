@@ -59,7 +59,7 @@ pub fn write_all(
             &out, &mut parts, opts, progress, &mut clock,
         )?);
     }
-    let compare = compare_outputs(caps, &mut parts, opts, &mut clock)?;
+    let compare = compare_outputs(caps, &mut parts, &mut results, opts, common, &mut clock)?;
 
     let t = Instant::now();
     let (inputs, mut outputs) = gather(caps, results, compare, opts, common, &hashes, &clock)?;
@@ -117,6 +117,9 @@ struct CaptureResult {
     options: Vec<(String, serde_json::Value)>,
     figures: Vec<SvgFigure>,
     written: Vec<PathBuf>,
+    /// The probe's task names and pooled test predictions (empty with one capture), for the
+    /// comparison's probe deltas.
+    probe_predictions: (Vec<String>, Vec<crate::records::probe::TaskPredictions>),
 }
 
 /// What the comparison of two captures gave: the page's inputs, its options and the files
@@ -128,11 +131,14 @@ struct CompareResult {
 }
 
 /// With two captures, write `compare.json` and its figures from the comparison's parts: its
-/// CKA rows merged into the rest.
+/// CKA rows merged into the rest, and its probe deltas paired from the captures' probe
+/// predictions when the comparison unit left them to the assembly.
 fn compare_outputs(
     caps: &[Capture],
     parts: &mut Parts,
+    results: &mut [CaptureResult],
     opts: &ReportOptions,
+    common: &CommonOptions,
     clock: &mut Clock,
 ) -> crate::Result<Option<CompareResult>> {
     let [a, b] = caps else {
@@ -151,7 +157,25 @@ fn compare_outputs(
     let Some(Part::Compare(p)) = found.into_iter().next() else {
         return Err(missing("comparison"));
     };
-    let rep = layerwise::merge_cka(crate::records::compare::CompareReport::from(p), rows)?;
+    let mut rep = layerwise::merge_cka(crate::records::compare::CompareReport::from(p), rows)?;
+    if rep.deltas_deferred {
+        let [ra, rb] = results else {
+            return Err(missing("probe predictions of both captures"));
+        };
+        let (tasks, pred_a) = std::mem::take(&mut ra.probe_predictions);
+        let pred_b = std::mem::take(&mut rb.probe_predictions.1);
+        rep.probe_delta = crate::analysis::compare::deltas_from_predictions(
+            a,
+            b,
+            &tasks,
+            &pred_a,
+            &pred_b,
+            &opts.compare,
+            common.seed,
+            &mut rep.notes,
+        )?;
+        rep.deltas_deferred = false;
+    }
     let seconds = seconds + row_seconds;
     let written = crate::commands::compare::write(&rep, &opts.out)?;
     clock.0.push(StepTime {
@@ -336,6 +360,10 @@ fn capture_outputs(
         options,
         figures,
         written,
+        probe_predictions: (
+            probe.tasks.iter().map(|t| t.task.clone()).collect(),
+            probe.predictions,
+        ),
     })
 }
 
@@ -346,7 +374,7 @@ fn probe_of(parts: &mut Parts, ci: usize) -> crate::Result<(ProbeReport, f64)> {
     let reports = found
         .into_iter()
         .map(|p| match p {
-            Part::Probe(r) => Ok(r),
+            Part::Probe(r) => Ok(r.into_report()),
             _ => Err(missing("probe")),
         })
         .collect::<crate::Result<Vec<_>>>()?;

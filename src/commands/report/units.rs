@@ -1,7 +1,8 @@
 //! The work of a report as units that run independently: (capture, layer) for the probe and
 //! ABX, one whole capture for its map (the map's layers chain their starting points), and
 //! for two captures one unit per layer of the first for its row of the CKA matrix and one
-//! for the rest of the comparison (the pairing and the probe deltas). Each unit computes records and returns them as a [`Part`];
+//! for the rest of the comparison (the pairing, and the probe deltas where the frames are
+//! not paired in order: otherwise the assembly pairs the probe units' own predictions). Each unit computes records and returns them as a [`Part`];
 //! nothing is written. `report` runs every unit in-process; `voxstrata unit` runs one and
 //! writes its part as JSON; `assemble` reads the parts back. Parts pass through the same
 //! JSON in both cases ([`Part::encode`] and [`Part::decode`]), so the files written from them
@@ -108,7 +109,7 @@ pub fn plan(
 #[serde(tag = "kind", rename_all = "snake_case")]
 pub enum Part {
     /// One layer's probe report.
-    Probe(ProbeReport),
+    Probe(ProbePart),
     /// One layer's ABX results.
     Abx(AbxLayer),
     /// ABX could not be computed on this capture (no triplet, unknown label): the reason.
@@ -167,8 +168,17 @@ pub fn run(
     match unit {
         Unit::Probe { capture, layer } => {
             let one = one_layer(common, *layer);
-            let r = crate::analysis::probe::run(cap(capture)?, &opts.probe, &one, progress)?;
-            Ok(Part::Probe(r))
+            let mut r = crate::analysis::probe::run(cap(capture)?, &opts.probe, &one, progress)?;
+            // The comparison's probe deltas are paired from these predictions at assembly.
+            let predictions = if caps.len() == 2 && opts.compare.probe {
+                std::mem::take(&mut r.predictions)
+            } else {
+                Vec::new()
+            };
+            Ok(Part::Probe(ProbePart {
+                report: r,
+                predictions,
+            }))
         }
         Unit::Abx { capture, layer } => {
             let c = cap(capture)?;
@@ -207,7 +217,8 @@ pub fn run(
                     "comparison without two captures".into(),
                 ));
             };
-            let r = compare::run_without_cka(a, b, &opts.compare, common, progress, None)?;
+            let deferred = compare::DeltaSource::Deferred;
+            let r = compare::run_without_cka(a, b, &opts.compare, common, progress, deferred)?;
             Ok(Part::Compare(ComparePart::from(r)))
         }
     }
@@ -217,6 +228,25 @@ fn one_layer(common: &CommonOptions, layer: usize) -> CommonOptions {
     CommonOptions {
         layers: Some(LayerSelection(vec![layer])),
         ..common.clone()
+    }
+}
+
+/// One layer's probe report with the pooled test predictions behind its records (which the
+/// report's own JSON leaves out): with two captures, the comparison pairs them at assembly
+/// instead of fitting the same probes again. Empty with one capture.
+#[derive(Clone, Debug, Serialize, Deserialize)]
+pub struct ProbePart {
+    report: ProbeReport,
+    predictions: Vec<crate::records::probe::TaskPredictions>,
+}
+
+impl ProbePart {
+    /// The report, its predictions restored.
+    pub fn into_report(self) -> ProbeReport {
+        ProbeReport {
+            predictions: self.predictions,
+            ..self.report
+        }
     }
 }
 
@@ -294,6 +324,8 @@ pub struct ComparePart {
     options: serde_json::Value,
     kernel: Kernel,
     estimator: Estimator,
+    /// The probe deltas are to be paired from the probe parts at assembly.
+    deltas_deferred: bool,
 }
 
 impl From<CompareReport> for ComparePart {
@@ -309,6 +341,7 @@ impl From<CompareReport> for ComparePart {
             options: r.options,
             kernel: r.kernel,
             estimator: r.estimator,
+            deltas_deferred: r.deltas_deferred,
         }
     }
 }
@@ -326,6 +359,7 @@ impl From<ComparePart> for CompareReport {
             options: p.options,
             kernel: p.kernel,
             estimator: p.estimator,
+            deltas_deferred: p.deltas_deferred,
         }
     }
 }

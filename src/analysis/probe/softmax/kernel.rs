@@ -140,8 +140,43 @@ pub fn cross_entropy_grad_packed(
     ce
 }
 
-/// One block of rows: scores, softmax, cross-entropy and gradient, panel by panel.
+/// One block of rows: scores, softmax, cross-entropy and gradient, panel by panel. The
+/// softmax loops are compiled for AVX2 too, and that build is used where the machine has
+/// it; they are written lane by lane without fused operations, so both builds give the same
+/// values.
 fn block_pass(
+    x: &PackedRows,
+    y: &[u32],
+    k: usize,
+    p: &Params,
+    bi: usize,
+) -> (f64, Vec<f32>, Vec<f64>) {
+    #[cfg(target_arch = "x86_64")]
+    if avx2::available() {
+        // SAFETY: AVX2 and FMA are present.
+        return unsafe { block_pass_avx2(x, y, k, p, bi) };
+    }
+    block_pass_any(x, y, k, p, bi)
+}
+
+/// [`block_pass_any`] compiled with AVX2 and FMA enabled.
+///
+/// # Safety
+/// AVX2 and FMA must be available.
+#[cfg(target_arch = "x86_64")]
+#[target_feature(enable = "avx2,fma")]
+unsafe fn block_pass_avx2(
+    x: &PackedRows,
+    y: &[u32],
+    k: usize,
+    p: &Params,
+    bi: usize,
+) -> (f64, Vec<f32>, Vec<f64>) {
+    block_pass_any(x, y, k, p, bi)
+}
+
+#[inline(always)]
+fn block_pass_any(
     x: &PackedRows,
     y: &[u32],
     k: usize,
@@ -152,7 +187,7 @@ fn block_pass(
     let lo = bi * BLOCK;
     let hi = (lo + BLOCK).min(n);
     let mut gw = vec![0f32; d * kp];
-    let mut gb = vec![0f64; k];
+    let mut gb = vec![0f32; kp];
     let mut z = vec![0f32; MR * kp];
     let mut ce = 0f64;
     for plo in (lo..hi).step_by(MR) {
@@ -161,31 +196,54 @@ fn block_pass(
         let rows = MR.min(hi - plo);
         for (r, zr) in z.chunks_exact_mut(kp).enumerate() {
             if r < rows {
-                ce += softmax_grad_row(&mut zr[..k], y[plo + r] as usize, &mut gb);
+                ce += softmax_grad_row(zr, k, y[plo + r] as usize, &mut gb);
             } else {
                 zr.fill(0.0);
             }
         }
         accumulate(panel, d, &z, kp, &mut gw);
     }
-    (ce, gw, gb)
+    (ce, gw, gb[..k].iter().map(|&v| v as f64).collect())
 }
 
-/// Turn one row of scores into the gradient row `p − onehot(y)` in place; add it to `gb` and
-/// return the row's cross-entropy `logsumexp(z) − z_y`.
-fn softmax_grad_row(row: &mut [f32], yi: usize, gb: &mut [f64]) -> f64 {
-    let m = row.iter().fold(f32::NEG_INFINITY, |a, &v| a.max(v));
+/// Lanes of the row reductions in [`softmax_grad_row`] (a fixed order, so the sums do not
+/// depend on the instruction set; written lane by lane so that they vectorise).
+const SL: usize = 8;
+
+/// Turn one row of scores (`row`, padded to kp, a multiple of [`SL`]; the first `k` are the
+/// classes) into the gradient row `p − onehot(y)` in place; add it to `gb` (kp long, f32
+/// within a block like the weight gradient) and return the row's cross-entropy
+/// `logsumexp(z) − z_y`. The padded columns get a probability of about 1e-38, which only the
+/// padded (discarded) gradient columns see.
+#[inline(always)]
+fn softmax_grad_row(row: &mut [f32], k: usize, yi: usize, gb: &mut [f32]) -> f64 {
+    row[k..].fill(f32::NEG_INFINITY);
+    let mut ml = [f32::NEG_INFINITY; SL];
+    for c in row.chunks_exact(SL) {
+        for (m, &v) in ml.iter_mut().zip(c) {
+            *m = if v > *m { v } else { *m };
+        }
+    }
+    let m = ml.iter().fold(f32::NEG_INFINITY, |a, &v| a.max(v));
     let zy = row[yi];
     for v in row.iter_mut() {
         *v = exp_f32(*v - m);
     }
-    let sum: f64 = row.iter().map(|&v| v as f64).sum();
+    let mut sl = [0f32; SL];
+    for c in row.chunks_exact(SL) {
+        for (s, &v) in sl.iter_mut().zip(c) {
+            *s += v;
+        }
+    }
+    let sum: f64 = sl.iter().map(|&v| v as f64).sum();
     let inv = (1.0 / sum) as f32;
-    for (j, v) in row.iter_mut().enumerate() {
-        let gv = *v * inv - (j == yi) as u8 as f32;
-        gb[j] += gv as f64;
+    for (v, g) in row.iter_mut().zip(gb.iter_mut()) {
+        let gv = *v * inv;
+        *g += gv;
         *v = gv;
     }
+    row[yi] -= 1.0;
+    gb[yi] -= 1.0;
     m as f64 + sum.ln() - zy as f64
 }
 
@@ -384,7 +442,7 @@ mod avx2 {
     /// Rows of a panel handled per tile.
     const RH: usize = 4;
     // `accumulate_tile` spells out the four rows, and a panel is a whole number of tiles.
-    const _: () = assert!(RH == 4 && MR % RH == 0);
+    const _: () = assert!(RH == 4 && MR.is_multiple_of(RH));
 
     pub fn available() -> bool {
         std::arch::is_x86_feature_detected!("avx2") && std::arch::is_x86_feature_detected!("fma")
@@ -604,14 +662,20 @@ mod tests {
             unsafe { avx2::scores(&packed.data, d, &pr.w, &pr.b, kp, &mut z1) };
             portable_scores(&packed.data, d, &pr.w, &pr.b, kp, &mut z2);
             for (a, b) in z1.iter().zip(&z2) {
-                assert!((a - b).abs() < 1e-5 * (1.0 + b.abs()), "d {d} k {k}: {a} vs {b}");
+                assert!(
+                    (a - b).abs() < 1e-5 * (1.0 + b.abs()),
+                    "d {d} k {k}: {a} vs {b}"
+                );
             }
             let (mut g1, mut g2) = (vec![0.5f32; d * kp], vec![0.5f32; d * kp]);
             // SAFETY: as above.
             unsafe { avx2::accumulate(&packed.data, d, &z1, kp, &mut g1) };
             portable_accumulate(&packed.data, d, &z1, kp, &mut g2);
             for (a, b) in g1.iter().zip(&g2) {
-                assert!((a - b).abs() < 1e-5 * (1.0 + b.abs()), "d {d} k {k}: {a} vs {b}");
+                assert!(
+                    (a - b).abs() < 1e-5 * (1.0 + b.abs()),
+                    "d {d} k {k}: {a} vs {b}"
+                );
             }
         }
     }
