@@ -164,6 +164,9 @@ fn compare_outputs(
         };
         let (tasks, pred_a) = std::mem::take(&mut ra.probe_predictions);
         let pred_b = std::mem::take(&mut rb.probe_predictions.1);
+        if pred_a.is_empty() || pred_b.is_empty() {
+            return Err(missing("test predictions for the probe deltas"));
+        }
         rep.probe_delta = crate::analysis::compare::deltas_from_predictions(
             a,
             b,

@@ -67,7 +67,9 @@ impl Unit {
             Unit::CkaRow { layer } => {
                 format!("CKA of {}, layer {layer}, against {}", name(&0), name(&1))
             }
-            Unit::Compare => "comparison (pairing and probe deltas)".to_string(),
+            Unit::Compare => {
+                "comparison (pairing; probe deltas unless paired at assembly)".to_string()
+            }
         }
     }
 }
@@ -169,8 +171,10 @@ pub fn run(
         Unit::Probe { capture, layer } => {
             let one = one_layer(common, *layer);
             let mut r = crate::analysis::probe::run(cap(capture)?, &opts.probe, &one, progress)?;
-            // The comparison's probe deltas are paired from these predictions at assembly.
-            let predictions = if caps.len() == 2 && opts.compare.probe {
+            // A comparison's probe deltas are paired from these predictions at assembly. A
+            // batch unit opens only its own capture, so whether the run has two is not known
+            // here: they are kept whenever probe deltas are asked for.
+            let predictions = if opts.compare.probe {
                 std::mem::take(&mut r.predictions)
             } else {
                 Vec::new()
@@ -233,7 +237,7 @@ fn one_layer(common: &CommonOptions, layer: usize) -> CommonOptions {
 
 /// One layer's probe report with the pooled test predictions behind its records (which the
 /// report's own JSON leaves out): with two captures, the comparison pairs them at assembly
-/// instead of fitting the same probes again. Empty with one capture.
+/// instead of fitting the same probes again. Empty when no probe deltas are asked for.
 #[derive(Clone, Debug, Serialize, Deserialize)]
 pub struct ProbePart {
     report: ProbeReport,
