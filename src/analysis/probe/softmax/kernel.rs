@@ -13,7 +13,7 @@
 //!
 //! On x86-64 with AVX-512F the panel products run in 512-bit registers (8 rows × up to 48
 //! classes of accumulators); with AVX2 and FMA but no AVX-512, in 256-bit registers (half a
-//! panel × up to 24 classes); elsewhere a portable loop over the same layout is used.
+//! panel × 16 classes per tile); elsewhere a portable loop over the same layout is used.
 
 use rayon::prelude::*;
 
@@ -432,8 +432,8 @@ mod avx512 {
 #[cfg(target_arch = "x86_64")]
 mod avx2 {
     //! The same panel products in 256-bit registers (AVX2 with FMA, for machines without
-    //! AVX-512): half a panel (4 rows) at a time, so that the accumulators, the weights and the
-    //! broadcast values fit in the 16 registers.
+    //! AVX-512): half a panel (4 rows) × 2 registers of classes at a time, so that the
+    //! accumulators, the weights and the broadcast values fit in the 16 registers.
     use super::MR;
     use std::arch::x86_64::*;
 
@@ -456,7 +456,10 @@ mod avx2 {
         for r0 in (0..MR).step_by(RH) {
             let mut c0 = 0;
             while c0 < kp {
-                let nv = ((kp - c0) / L).min(3);
+                // Two registers of classes per tile: 8 accumulators, 2 weights and the
+                // broadcasts fit the 16 registers without spilling (three spilled one
+                // accumulator to the stack, which put a store and a load in its chain).
+                let nv = ((kp - c0) / L).min(2);
                 let (xp, wp, bp, zp) = (
                     panel.as_ptr().add(r0),
                     w.as_ptr().add(c0),
@@ -464,7 +467,6 @@ mod avx2 {
                     z.as_mut_ptr().add(r0 * kp + c0),
                 );
                 match nv {
-                    3 => scores_tile::<3>(xp, d, wp, bp, kp, zp),
                     2 => scores_tile::<2>(xp, d, wp, bp, kp, zp),
                     _ => scores_tile::<1>(xp, d, wp, bp, kp, zp),
                 }
@@ -560,12 +562,13 @@ mod avx2 {
             // v indexes the register tile across rows (gv[r][v]), so a range loop is clearest
             #[allow(clippy::needless_range_loop)]
             for v in 0..NV {
-                // two chains (rows 0 and 2, rows 1 and 3) to halve the dependency latency
+                // one chain of four FMAs: the chains of successive features are independent
+                // and overlap, and no extra multiply or add is spent
                 let a = _mm256_fmadd_ps(xb[0], gv[0][v], _mm256_loadu_ps(orow.add(v * L)));
-                let c = _mm256_mul_ps(xb[1], gv[1][v]);
+                let a = _mm256_fmadd_ps(xb[1], gv[1][v], a);
                 let a = _mm256_fmadd_ps(xb[2], gv[2][v], a);
-                let c = _mm256_fmadd_ps(xb[3], gv[3][v], c);
-                _mm256_storeu_ps(orow.add(v * L), _mm256_add_ps(a, c));
+                let a = _mm256_fmadd_ps(xb[3], gv[3][v], a);
+                _mm256_storeu_ps(orow.add(v * L), a);
             }
         }
     }
