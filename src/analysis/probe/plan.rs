@@ -156,18 +156,7 @@ fn plan_task(
     let folds = capped_folds(&sp, &items, opts, ti, seed);
     note_frame_split(sp.kind, name, notes);
     note_test_cap(&sp, &folds, name, opts, notes);
-    let check = split::check_leakage(
-        sp.kind,
-        sp.every_speaker_both_sides,
-        &folds,
-        &items.utt,
-        &items.speaker,
-    );
-    if !check.passed {
-        return Err(ProbeError::Internal(format!(
-            "task '{name}': split leaks: {check:?}"
-        )));
-    }
+    let check = check_no_leak(&sp, &folds, &items, name)?;
     let ctl = if opts.control {
         Some(control_plan(
             cap,
@@ -497,6 +486,30 @@ fn note_frame_split(kind: SplitKind, name: &str, notes: &mut Vec<String>) {
 }
 
 /// Note when the test cap left test items out.
+/// The folds' leakage check ([`split::check_leakage`]); an internal error when they put one
+/// group on both sides where the split promises they do not.
+pub(super) fn check_no_leak(
+    sp: &Split,
+    folds: &[Fold],
+    items: &Items,
+    name: &str,
+) -> Result<split::LeakageCheck, ProbeError> {
+    let check = split::check_leakage(
+        sp.kind,
+        sp.every_speaker_both_sides,
+        folds,
+        &items.utt,
+        &items.speaker,
+    );
+    if check.passed {
+        Ok(check)
+    } else {
+        Err(ProbeError::Internal(format!(
+            "task '{name}': split leaks: {check:?}"
+        )))
+    }
+}
+
 pub(super) fn note_test_cap(
     sp: &Split,
     folds: &[Fold],

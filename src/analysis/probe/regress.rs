@@ -22,7 +22,9 @@ use crate::records::probe::{BestFit, FitFall, ProbeRecord, TaskPredictions, Task
 use crate::select::pool::{self, Items, UttIndex};
 use crate::select::split::{self, Fold, SplitKind, SplitOptions};
 
-use super::plan::{capped_folds, check_two_speakers, fold_sides, group_word, note_test_cap};
+use super::plan::{
+    capped_folds, check_no_leak, check_two_speakers, fold_sides, group_word, note_test_cap,
+};
 use super::{bootstrap, control, ridge, LayerRows, ProbeError, ProbeOptions};
 
 /// A continuous task ready to run: items with their values, and folds.
@@ -107,18 +109,7 @@ pub(super) fn plan_task(
         ));
     }
     note_test_cap(&sp, &folds, name, opts, notes);
-    let check = split::check_leakage(
-        sp.kind,
-        sp.every_speaker_both_sides,
-        &folds,
-        &items.utt,
-        &items.speaker,
-    );
-    if !check.passed {
-        return Err(ProbeError::Internal(format!(
-            "task '{name}': split leaks: {check:?}"
-        )));
-    }
+    let check = check_no_leak(&sp, &folds, &items, name)?;
     let ctl = if opts.control {
         Some(control_types(cap, idx, opts, name, &items, &value)?)
     } else {
