@@ -17,7 +17,7 @@ def test_probe_in_memory_equals_cli(demo_early, tmp_path):
     out = tmp_path / "probe"
     run_cli("probe", demo_early, "--out", out, "--quiet", "--layers", PROBE["layers"],
             "--max-train-frames", PROBE["max_train_frames"], "--bootstrap", PROBE["bootstrap"],
-            "--seed", PROBE["seed"])
+            "--seed", PROBE["seed"], "--task", "phone", "--task", "speaker")
     want = read_json(out / "probe.json")["records"]
     layers, cols = load_capture(demo_early)
     assert layers[0].dtype == np.float16  # read in place, as stored
