@@ -27,7 +27,7 @@ pub(super) struct TaskPlan {
     pub(super) setup: TaskSetup,
 }
 
-fn input(msg: String) -> ProbeError {
+pub(super) fn input(msg: String) -> ProbeError {
     ProbeError::Input(msg)
 }
 

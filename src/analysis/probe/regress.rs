@@ -23,7 +23,7 @@ use crate::select::pool::{self, Items, UttIndex};
 use crate::select::split::{self, Fold, SplitKind, SplitOptions};
 
 use super::plan::{
-    capped_folds, check_no_leak, check_two_speakers, fold_sides, group_word, note_test_cap,
+    capped_folds, check_no_leak, check_two_speakers, fold_sides, group_word, input, note_test_cap,
 };
 use super::{bootstrap, control, ridge, LayerRows, ProbeError, ProbeOptions};
 
@@ -38,10 +38,6 @@ pub(super) struct RegressPlan {
     /// Control type of each item (None when the control is off).
     pub(super) types: Option<Vec<u32>>,
     pub(super) setup: TaskSetup,
-}
-
-fn input(msg: String) -> ProbeError {
-    ProbeError::Input(msg)
 }
 
 /// Plan continuous task number `ti` (its seeds are derived from `seed` and `ti`, as a
