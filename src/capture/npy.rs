@@ -610,6 +610,10 @@ impl NpyFile {
             .into_par_iter()
             .enumerate()
             .for_each(|(ci, mut chunk)| {
+                // Storage span of this chunk's rows, released in one call afterwards: one
+                // `madvise` per row cost a page-table walk and a TLB flush on every core per
+                // row (half of an ABX run's time on a 200 000-frame layer).
+                let (mut lo, mut hi) = (usize::MAX, 0usize);
                 for (ri, mut row) in chunk.outer_iter_mut().enumerate() {
                     let r = rows[ci * 256 + ri];
                     let slice = row.as_slice_mut().expect("standard layout");
@@ -620,12 +624,16 @@ impl NpyFile {
                     } else {
                         let start = self.index(layer, r, 0);
                         self.decode_run(data, start, slice);
-                        // Sparse row reads must not leave the whole file resident.
-                        self.release_elems(start, start + slice.len());
+                        lo = lo.min(start);
+                        hi = hi.max(start + slice.len());
                     }
                 }
                 if fortran {
                     self.release();
+                } else if lo < hi {
+                    // Sparse row reads must not leave the whole file resident: a chunk
+                    // touches at most 256 rows' fault-around windows, all inside its span.
+                    self.release_elems(lo, hi);
                 }
             });
         out
