@@ -13,6 +13,7 @@ use voxstrata::analysis::map::MapOptions;
 use voxstrata::analysis::probe::ProbeOptions;
 use voxstrata::capture::{LabelOptions, LayerSelection};
 use voxstrata::commands;
+use voxstrata::commands::report::sample::{SampleOptions, Size};
 use voxstrata::{CommonOptions, Error, OpenOptions, Progress};
 
 #[derive(Parser, Debug)]
@@ -283,6 +284,14 @@ struct ReportCmd {
     /// Also compute the probes' MDL online code and draw its compression on the page.
     #[arg(long)]
     mdl: bool,
+    /// Training frames per probe fit: a number (0: all) or auto (20000 on layers up to 128
+    /// wide, scaled by 128/width on wider ones, at least 2000; said on the page)
+    #[arg(long = "probe-frames", default_value = "auto")]
+    probe_frames: Size,
+    /// Points per layer map: a number or auto (10000 on layers up to 128 wide, scaled by
+    /// 128/width on wider ones, at least 1000; said on the page)
+    #[arg(long = "map-points", default_value = "auto")]
+    map_points: Size,
     #[command(flatten)]
     cap: CaptureArgs,
 }
@@ -331,6 +340,8 @@ impl BatchCmd {
                 },
                 abx: !r.no_abx,
                 mdl: r.mdl,
+                probe_frames: r.probe_frames,
+                map_points: r.map_points,
             },
             slurm: commands::batch::Slurm {
                 partition: self.partition,
@@ -469,6 +480,10 @@ impl ReportCmd {
             probe: ProbeOptions {
                 mdl: self.mdl,
                 ..Default::default()
+            },
+            sample: SampleOptions {
+                probe_frames: self.probe_frames,
+                map_points: self.map_points,
             },
             ..Default::default()
         })

@@ -104,6 +104,13 @@ impl Progress {
         }
     }
 
+    /// Print a note on stderr now (`voxstrata: note: …`), unless the reporter is hidden.
+    pub fn note(&self, m: &str) {
+        if !matches!(self.mode, Mode::Hidden) {
+            eprintln!("voxstrata: note: {}", self.prefixed(m));
+        }
+    }
+
     /// `m` with the prefix in front.
     fn prefixed(&self, m: &str) -> String {
         match &self.prefix {

@@ -23,6 +23,7 @@ use super::report::{self, Clock, Done, ReportOptions};
 use crate::analysis::abx::AbxOptions;
 use crate::analysis::map::{MapOptions, Method};
 use crate::capture::{LabelOptions, LayerSelection, OpenOptions};
+use crate::commands::report::sample::{SampleChoice, SampleOptions, Size};
 use crate::write;
 use crate::{CommonOptions, Progress};
 
@@ -129,6 +130,12 @@ pub struct Settings {
     /// Compute the probes' MDL online code.
     #[serde(default)]
     pub mdl: bool,
+    /// Training frames per probe fit (`auto`: from the layers' width).
+    #[serde(default)]
+    pub probe_frames: Size,
+    /// Points per layer map (`auto`: from the layers' width).
+    #[serde(default)]
+    pub map_points: Size,
 }
 
 impl Settings {
@@ -159,6 +166,10 @@ impl Settings {
             probe: crate::analysis::probe::ProbeOptions {
                 mdl: self.mdl,
                 ..Default::default()
+            },
+            sample: SampleOptions {
+                probe_frames: self.probe_frames,
+                map_points: self.map_points,
             },
             ..Default::default()
         }
@@ -271,6 +282,9 @@ pub struct Plan {
     pub out: PathBuf,
     /// Report settings.
     pub settings: Settings,
+    /// The sample chosen with every capture open (a unit opens only its own capture, so it
+    /// could not choose the same one itself when the captures differ in width).
+    pub sample: SampleChoice,
     /// The units; a unit's index is its array task id.
     pub units: Vec<Unit>,
 }
@@ -287,6 +301,13 @@ impl Plan {
     fn options(&self) -> ReportOptions {
         self.settings
             .report_options(self.captures.clone(), self.out.clone())
+    }
+
+    /// The options, checked, with the plan's sample set in.
+    fn sized_options(&self) -> crate::Result<ReportOptions> {
+        let mut opts = report::resolve(&self.options())?;
+        report::use_sample(&mut opts, self.sample.clone());
+        Ok(opts)
     }
 
     fn describe(&self, i: usize) -> String {
@@ -340,9 +361,11 @@ pub fn run(args: &BatchArgs, common: &CommonOptions) -> crate::Result<()> {
     let opts = args
         .settings
         .report_options(args.captures.clone(), args.out.clone());
-    let opts = report::resolve(&opts)?;
+    let mut opts = report::resolve(&opts)?;
     write::check_out_dir(&opts.out, args.force)?;
     let caps = report::open_all(&opts, common)?;
+    let sample = report::choose_sample(&opts, &caps, common);
+    report::use_sample(&mut opts, sample.clone());
     let units = units::plan(&caps, &opts, common)?;
     let workdir = std::env::current_dir().map_err(|e| io_err(Path::new("."), e))?;
     check_script_path(&workdir.join(batch_dir(&opts.out)))?;
@@ -357,6 +380,7 @@ pub fn run(args: &BatchArgs, common: &CommonOptions) -> crate::Result<()> {
         names: caps.iter().map(|c| c.name.clone()).collect(),
         out: opts.out.clone(),
         settings: args.settings.clone(),
+        sample,
         units,
     };
     write::prepare_out_dir(&opts.out, args.force)?;
@@ -506,7 +530,7 @@ pub fn unit(plan_path: &Path, index: usize, progress: &Progress) -> crate::Resul
 /// its own units, not the other capture's).
 fn run_unit(plan: &Plan, index: usize, progress: &Progress) -> crate::Result<Part> {
     let common = plan.common();
-    let mut opts = report::resolve(&plan.options())?;
+    let mut opts = plan.sized_options()?;
     let unit = match plan.units[index].clone() {
         Unit::Probe { capture, layer } => {
             opts.captures = vec![own(&opts.captures, capture)?];
@@ -551,7 +575,7 @@ pub fn assemble(dir: &Path, progress: &Progress) -> crate::Result<()> {
     let done = read_parts(&plan, &batch_dir(&dir).join("parts"), &dir, &plan_path)?;
     std::env::set_current_dir(&plan.workdir).map_err(|e| io_err(&plan.workdir, e))?;
     let common = plan.common();
-    let opts = report::resolve(&plan.options())?;
+    let opts = plan.sized_options()?;
     let mut clock = Clock::default();
     let t = Instant::now();
     let caps = report::open_all(&opts, &common)?;

@@ -20,10 +20,14 @@ pub struct Sample {
     pub frames: Vec<usize>,
     /// Number of non-empty cells.
     pub cells: usize,
-    /// Cells holding fewer frames than asked for (all of their frames were taken).
+    /// Cells holding fewer frames than the quota taken per cell (all of their frames were
+    /// taken).
     pub short_cells: usize,
     /// Frames taken per cell (after any cap on the total).
     pub per_cell: usize,
+    /// Cells that gave frames: all non-empty ones, or, when the cap on the total is below
+    /// the number of cells, that many cells drawn with the seed (one frame each).
+    pub cells_used: usize,
 }
 
 /// Draw up to `per_cell` frames from each cell defined by the codes in `strata` (a frame with
@@ -62,17 +66,36 @@ pub fn stratified(strata: &[&[u32]], per_cell: usize, max_total: usize, seed: u6
         }
         quota = lo;
     }
-    let mut frames: Vec<usize> = cells
-        .values()
-        .flat_map(|c| c.iter().take(quota).copied())
-        .collect();
+    let mut frames: Vec<usize> = if quota == 0 && per_cell > 0 && max_total > 0 {
+        // Fewer frames allowed than there are cells: one frame from each of `max_total`
+        // cells, the cells drawn with the same generator (in key order, then shuffled).
+        let mut firsts: Vec<usize> = cells.values().map(|c| c[0]).collect();
+        for i in (1..firsts.len()).rev() {
+            let j = rng.random_range(0..=i);
+            firsts.swap(i, j);
+        }
+        firsts.truncate(max_total);
+        firsts
+    } else {
+        cells
+            .values()
+            .flat_map(|c| c.iter().take(quota).copied())
+            .collect()
+    };
     frames.sort_unstable();
-    let short_cells = cells.values().filter(|c| c.len() < per_cell).count();
+    // cells that gave all their frames because they hold fewer than the quota
+    let short_cells = cells.values().filter(|c| c.len() < quota).count();
+    let cells_used = if quota == 0 {
+        frames.len()
+    } else {
+        cells.len()
+    };
     Sample {
         frames,
         cells: cells.len(),
         short_cells,
-        per_cell: quota,
+        per_cell: quota.max(usize::from(cells_used > 0)),
+        cells_used,
     }
 }
 
@@ -133,5 +156,28 @@ mod tests {
         assert_ne!(s.frames, stratified(&[&spk, &ph], 5, 1000, 8).frames);
         let capped = stratified(&[&spk, &ph], 5, 10, 7);
         assert!(capped.frames.len() <= 10 && capped.per_cell == 2);
+        assert_eq!(capped.cells_used, 4);
+    }
+
+    #[test]
+    fn a_cap_below_the_number_of_cells_takes_one_frame_from_that_many_cells() {
+        // 10 speakers × 8 phones, 3 frames per cell: 80 cells, cap 25
+        let spk: Vec<u32> = (0..240).map(|i| (i / 24) as u32).collect();
+        let ph: Vec<u32> = (0..240).map(|i| ((i / 3) % 8) as u32).collect();
+        let s = stratified(&[&spk, &ph], 10, 25, 3);
+        assert_eq!(
+            (s.frames.len(), s.cells, s.cells_used, s.per_cell),
+            (25, 80, 25, 1)
+        );
+        let mut keys: Vec<(u32, u32)> = s.frames.iter().map(|&f| (spk[f], ph[f])).collect();
+        keys.sort_unstable();
+        keys.dedup();
+        assert_eq!(keys.len(), 25, "one frame per drawn cell");
+        assert!(s.frames.windows(2).all(|w| w[0] < w[1]));
+        assert_eq!(s, stratified(&[&spk, &ph], 10, 25, 3));
+        assert_ne!(s.frames, stratified(&[&spk, &ph], 10, 25, 4).frames);
+        // more than 3 speakers drawn: the cells are spread, not the first ones in key order
+        let speakers: std::collections::BTreeSet<u32> = keys.iter().map(|k| k.0).collect();
+        assert!(speakers.len() > 3, "{speakers:?}");
     }
 }

@@ -202,6 +202,8 @@ pub fn run(
         ("kmeans_k_used", metrics.kmeans_k),
         ("knn_k_used", metrics.knn_k),
         ("per_cell_used", sample.per_cell),
+        ("cells", sample.cells),
+        ("cells_used", sample.cells_used),
     ];
     let options = options_value(opts, common.seed, &used)?;
     Ok(MapReport {
@@ -245,11 +247,16 @@ fn draw_sample(
     };
     if sample.short_cells > 0 {
         notes.push(format!(
-            "--per-label {}: {} of {} {} cells hold fewer frames; all their frames were taken",
-            opts.per_label, sample.short_cells, sample.cells, cell_name
+            "{} of {} {} cells hold fewer than the {} frames taken per cell (--per-label {}); all their frames were taken",
+            sample.short_cells, sample.cells, cell_name, sample.per_cell, opts.per_label
         ));
     }
-    if sample.per_cell < opts.per_label {
+    if sample.cells_used < sample.cells {
+        notes.push(format!(
+            "sample capped at {} frames, fewer than the {} {} cells: one frame from each of {} cells drawn with the seed",
+            opts.max_points, sample.cells, cell_name, sample.cells_used
+        ));
+    } else if sample.per_cell < opts.per_label {
         notes.push(format!(
             "sample capped at {} frames: {} frames per {} cell instead of {}",
             opts.max_points, sample.per_cell, cell_name, opts.per_label

@@ -131,7 +131,10 @@ mod tests {
                 map_method: "pca".into(),
                 abx: false,
                 mdl: false,
+                probe_frames: Default::default(),
+                map_points: Default::default(),
             },
+            sample: crate::commands::report::sample::choose(&Default::default(), 48),
             units: vec![Unit::Map { capture: 0 }; 4],
         }
     }

@@ -250,6 +250,12 @@ fn gather(
         captures: sections,
         compare,
         figures,
+        sample: opts
+            .chosen
+            .as_ref()
+            .map(|c| c.sentence())
+            .unwrap_or_default(),
+        sample_scaled: opts.chosen.as_ref().is_some_and(|c| c.scaled),
         methods: Methods {
             version: env!("CARGO_PKG_VERSION").to_string(),
             seed: common.seed,
@@ -513,6 +519,9 @@ fn write_run_record(
             "merge_labels": opts.open.labels.merge.len(),
             "allow_nonfinite": opts.open.allow_nonfinite,
             "map_method": opts.map.method,
+            "probe_frames": opts.sample.probe_frames,
+            "map_points": opts.sample.map_points,
+            "sample": opts.chosen,
         }),
         timings,
         inputs,

@@ -9,6 +9,7 @@
 //! the same units as separate jobs and assembles their parts from disk.
 
 pub mod assemble;
+pub mod sample;
 mod sources;
 pub mod units;
 
@@ -65,6 +66,9 @@ pub enum ReportError {
     /// Page data could not be encoded.
     #[error("cannot encode report data: {0}")]
     Encode(String),
+    /// An option value that cannot work.
+    #[error("{0}")]
+    Option(String),
 }
 
 impl ReportError {
@@ -75,6 +79,7 @@ impl ReportError {
             ReportError::TooManyCaptures { .. }
                 | ReportError::DemoMissing { .. }
                 | ReportError::Mismatch { .. }
+                | ReportError::Option(_)
         )
     }
 }
@@ -98,6 +103,10 @@ pub struct ReportOptions {
     pub compare: CompareOptions,
     /// ABX settings (None: no ABX).
     pub abx: Option<AbxOptions>,
+    /// How many frames the probes and maps use (`auto`: from the layers' width).
+    pub sample: sample::SampleOptions,
+    /// The sample chosen once the captures are open ([`use_sample`]); None before.
+    pub chosen: Option<sample::SampleChoice>,
 }
 
 impl Default for ReportOptions {
@@ -111,6 +120,8 @@ impl Default for ReportOptions {
             map: MapOptions::default(),
             compare: CompareOptions::default(),
             abx: Some(AbxOptions::default()),
+            sample: sample::SampleOptions::default(),
+            chosen: None,
         }
     }
 }
@@ -124,6 +135,7 @@ impl ReportOptions {
         if let Some(a) = &self.abx {
             a.check()?;
         }
+        self.sample.check().map_err(ReportError::Option)?;
         if self.captures.len() > 2 {
             return Err(ReportError::TooManyCaptures {
                 found: self.captures.len(),
@@ -181,6 +193,10 @@ pub fn run(
     let t = Instant::now();
     let caps = open_all(&opts, common)?;
     clock.done("open and validate", t);
+    let mut opts = opts;
+    let chosen = choose_sample(&opts, &caps, common);
+    tell_sample(&chosen, progress);
+    use_sample(&mut opts, chosen);
     write::prepare_out_dir(&opts.out, opts.force)?;
     let mut done = Vec::new();
     for unit in units::plan(&caps, &opts, common)? {
@@ -206,6 +222,30 @@ pub fn resolve(opts: &ReportOptions) -> crate::Result<ReportOptions> {
     }
     opts.check()?;
     Ok(opts)
+}
+
+/// The sample for `caps`, chosen from the widest layer `common.layers` selects.
+pub fn choose_sample(
+    opts: &ReportOptions,
+    caps: &[Capture],
+    common: &CommonOptions,
+) -> sample::SampleChoice {
+    sample::choose(&opts.sample, sample::widest(caps, common.layers.as_ref()))
+}
+
+/// Set a chosen sample into the probe and map options (every unit and the assembly of one
+/// run use the one chosen with all captures open).
+pub fn use_sample(opts: &mut ReportOptions, chosen: sample::SampleChoice) {
+    opts.probe.max_train_frames = chosen.probe_frames;
+    opts.map.max_points = chosen.map_points;
+    opts.chosen = Some(chosen);
+}
+
+/// Say on the progress lines when the caps were lowered for the layers' width.
+pub fn tell_sample(chosen: &sample::SampleChoice, progress: &Progress) {
+    if chosen.scaled {
+        progress.note(&chosen.sentence());
+    }
 }
 
 /// Open every capture and check they can be analysed together, before any analysis.

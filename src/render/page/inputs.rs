@@ -153,4 +153,8 @@ pub struct ReportInputs {
     pub figures: Vec<SvgFigure>,
     /// How the run was done.
     pub methods: Methods,
+    /// What the probes and maps sampled (one paragraph; empty: not said).
+    pub sample: String,
+    /// Whether that sample was lowered for the layers' width (drawn as a caution).
+    pub sample_scaled: bool,
 }

@@ -242,11 +242,19 @@ fn map_methods(p: &mut String, m: &Methods, sec: &CaptureSection) {
                 Some("pca") => "the first two principal components, aligned layer to layer by orthogonal Procrustes".to_string(),
                 _ => "a 2-D embedding".to_string(),
             };
+            let per_cell = match (o["cells"].as_u64(), o["cells_used"].as_u64()) {
+                (Some(all), Some(used)) if used < all => {
+                    format!("one from each of {used} of the {all} speaker × phone cells, the cells drawn with the seed")
+                }
+                _ => format!(
+                    "up to {} per speaker × phone cell",
+                    num(&o["per_cell_used"]).unwrap_or("?".into())
+                ),
+            };
             let _ = write!(
                 p,
-                "Its 2-D maps place the same {} sampled frames (up to {} per speaker × phone cell) for each of {} layers, drawn by {how}; purity is measured on those frames with k = {} nearest neighbours and k-means with {} clusters (Hsu et al. 2021). ",
+                "Its 2-D maps place the same {} sampled frames ({per_cell}) for each of {} layers, drawn by {how}; purity is measured on those frames with k = {} nearest neighbours and k-means with {} clusters (Hsu et al. 2021). ",
                 mp.frames.len(),
-                num(&o["per_cell_used"]).unwrap_or("?".into()),
                 mp.layers.len(),
                 num(&o["knn_k_used"]).unwrap_or("?".into()),
                 num(&o["kmeans_k_used"]).unwrap_or("?".into()),

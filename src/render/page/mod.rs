@@ -221,6 +221,18 @@ pub fn render(inp: &ReportInputs) -> String {
     head_html(&mut o, inp, title);
     o.push_str("<section id=\"analysed\"><h2>What was analysed</h2>");
     summary_table(&mut o, &inp.captures);
+    if !inp.sample.is_empty() {
+        let _ = write!(
+            o,
+            "<p id=\"sample\" class=\"{}\">{}</p>",
+            if inp.sample_scaled {
+                "caution"
+            } else {
+                "plain"
+            },
+            esc(&inp.sample)
+        );
+    }
     o.push_str("</section>");
     headline_html(&mut o, inp);
     maps_html(&mut o, inp, has_maps);
@@ -547,6 +559,8 @@ mod page_tests {
                 options: vec![(bad.into(), serde_json::json!({ "k": bad }))],
                 ..Default::default()
             },
+            sample: bad.into(),
+            sample_scaled: true,
         };
         let page = render(&inp);
         assert!(
