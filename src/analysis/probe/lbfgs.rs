@@ -50,8 +50,26 @@ pub struct LbfgsResult {
     pub grad_max: f64,
 }
 
+/// `a · b` summed in 8 interleaved partial sums (combined in a fixed order, so the value does
+/// not depend on the machine or thread count): one serial chain of additions was bound by the
+/// adder's latency, and on a 768-wide, 100-class probe the L-BFGS direction (20 such dots of
+/// 77 000 values per iteration) ran on one core for a tenth of the fit.
 fn dot(a: &[f64], b: &[f64]) -> f64 {
-    a.iter().zip(b).map(|(x, y)| x * y).sum()
+    let n = a.len().min(b.len());
+    let (a, b) = (&a[..n], &b[..n]);
+    let mut acc = [0.0f64; 8];
+    let (ca, cb) = (a.chunks_exact(8), b.chunks_exact(8));
+    let (ra, rb) = (ca.remainder(), cb.remainder());
+    for (xa, xb) in ca.zip(cb) {
+        for ((s, x), y) in acc.iter_mut().zip(xa).zip(xb) {
+            *s += x * y;
+        }
+    }
+    let mut tail = 0.0;
+    for (x, y) in ra.iter().zip(rb) {
+        tail += x * y;
+    }
+    ((acc[0] + acc[4]) + (acc[1] + acc[5])) + ((acc[2] + acc[6]) + (acc[3] + acc[7])) + tail
 }
 
 fn max_abs(a: &[f64]) -> f64 {
