@@ -576,8 +576,14 @@ def row_report_capture(quick):
     m = re.search(r"peak RSS (\d+) kB", ours.err)
     peak = int(m.group(1)) / 1024 if m else ours.rss_mib
     with open(os.path.join(out, "run.json")) as f:
-        steps = json.load(f)["timings"]
+        run = json.load(f)
+    steps = run["timings"]
     stages = ", ".join(f"{s['step']} {s['seconds']:.1f} s" for s in steps)
+    smp = run["options"].get("sample") or {}
+    if smp:
+        stages += (f"; the report's sample (layers {smp['width']} wide): {smp['probe_frames']} "
+                   f"training frames per probe fit (probe's default {smp['probe_default']}), "
+                   f"{smp['map_points']} map points (map's default {smp['map_default']})")
     with open(os.path.join(cap, "manifest.json")) as f:
         p = json.load(f)
     shape = f"{p['layers']} x {p['frames']} x {p['dim']} float16"
