@@ -600,6 +600,41 @@ def row_report_capture(quick):
     )
 
 
+def row_probe_pipeline(quick):
+    """The whole probe of one task on one layer of the full-size capture (penalty search,
+    refit, control, test predictions, bootstrap) against scikit-learn doing the same steps."""
+    cap = gen_data.ensure("capture", quick)
+    layer = 6 if not quick else 0
+    out = fresh(os.path.join(OUT, "probe_pipeline"))
+    warm_cache(os.path.join(cap, f"layer_{layer:02d}.npy"))
+    ours = timed([BIN, "--threads", "2", "--quiet", "--layers", layer, "probe", cap, "--task",
+                  "phone", "--out", out, "--force"]).check("probe pipeline")
+    with open(os.path.join(out, "probe.json")) as f:
+        rec = json.load(f)["records"][0]
+    r = ref("pipeline", cap, f"layer_{layer:02d}.npy", "phone", 20000, 50000)
+    r.check("ref pipeline")
+    f = r.json()
+    speed = r.wall / ours.wall
+    acc_diff = abs(rec["accuracy"] - f["accuracy"]) * 100
+    return row(
+        f"probe pipeline, phone on layer {layer} of the full-size capture ({rec['n_train']} training "
+        f"x 768 dims x 40 classes, {rec['n_test']} test): penalty search, refit, control, bootstrap",
+        reference="scikit-learn LogisticRegression(lbfgs, warm_start), the same steps (bench/ref.py pipeline)",
+        ref_s=r.wall,
+        ours_s=ours.wall,
+        quality=f"held-out accuracy {f['accuracy']:.4f} (ref) vs {rec['accuracy']:.4f} (ours), diff "
+        f"{acc_diff:.2f} points (different random split and caps of the same sizes); control "
+        f"{f['control_accuracy']:.4f} vs {rec['control_accuracy']:.4f}; chosen alpha {f['alpha']} vs "
+        f"C {rec['c']:.3g} (= alpha {1 / (rec['c'] * rec['n_train']):.3g})",
+        ref_mem=r.rss_mib,
+        ours_mem=ours.rss_mib,
+        target=">= 5x faster (issue 17), accuracy within 1 point",
+        met=yes(speed >= 5 and acc_diff <= 1.0, f"{speed:.1f}x, {acc_diff:.2f} points"),
+        notes="wall time of each whole process, reading the layer included; --threads 2 and "
+        "OpenBLAS's 2 threads",
+    )
+
+
 STOPPED_NAMES = {
     "row_report_capture": ("`report` on a generated full-size capture", "< 120 s, peak < 1 GiB on 2 cores"),
     "row_demo_demo": ("`demo` generation", "< 2 min"),
@@ -697,7 +732,7 @@ def render(rows, info, quick, load_before, load_after, blas, elapsed, versions):
 def main():
     ap = argparse.ArgumentParser()
     ap.add_argument("--quick", action="store_true")
-    ap.add_argument("--only", nargs="*", help="row numbers to run (1..10)")
+    ap.add_argument("--only", nargs="*", help="row numbers to run (1..11)")
     a = ap.parse_args()
     only = set(a.only or [])
     want = lambda n: not only or str(n) in only  # noqa: E731
@@ -785,6 +820,8 @@ def main():
         add(9, attempt(9, row_utts, a.quick))
     if want(10):
         add(10, attempt(10, row_report_capture, a.quick))
+    if want(11):
+        add(11, attempt(11, row_probe_pipeline, a.quick))
     rows.sort(key=lambda r: r["id"])
     load_after = uptime()
     elapsed = time.perf_counter() - t0
