@@ -54,7 +54,7 @@ pub struct LbfgsResult {
 /// not depend on the machine or thread count): one serial chain of additions was bound by the
 /// adder's latency, and on a 768-wide, 100-class probe the L-BFGS direction (20 such dots of
 /// 77 000 values per iteration) ran on one core for a tenth of the fit.
-fn dot(a: &[f64], b: &[f64]) -> f64 {
+pub(crate) fn dot(a: &[f64], b: &[f64]) -> f64 {
     let n = a.len().min(b.len());
     let (a, b) = (&a[..n], &b[..n]);
     let mut acc = [0.0f64; 8];
@@ -121,8 +121,9 @@ impl History {
     }
 
     /// The search direction -H g by the two-loop recursion, H the inverse-Hessian estimate
-    /// of the kept pairs (scaled by s · y / y · y of the newest pair).
-    fn direction(&self, g: &[f64]) -> Vec<f64> {
+    /// of the kept pairs built on the initial matrix γ M (M the preconditioner, the identity
+    /// when there is none; γ = s · y / y · M y of the newest pair).
+    fn direction(&self, g: &[f64], precond: Option<&Precond<'_>>) -> Vec<f64> {
         let (s_hist, y_hist, rho) = (&self.s, &self.y, &self.rho);
         let mut q = g.to_vec();
         let m = s_hist.len();
@@ -133,13 +134,26 @@ impl History {
                 *qj -= a[i] * yj;
             }
         }
-        let gamma = if m > 0 {
-            dot(&s_hist[m - 1], &y_hist[m - 1]) / dot(&y_hist[m - 1], &y_hist[m - 1])
+        if let Some(pc) = precond {
+            let gamma = if m > 0 {
+                let my = pc(&y_hist[m - 1]);
+                dot(&s_hist[m - 1], &y_hist[m - 1]) / dot(&y_hist[m - 1], &my)
+            } else {
+                1.0
+            };
+            q = pc(&q);
+            for v in q.iter_mut() {
+                *v *= gamma;
+            }
         } else {
-            1.0
-        };
-        for v in q.iter_mut() {
-            *v *= gamma;
+            let gamma = if m > 0 {
+                dot(&s_hist[m - 1], &y_hist[m - 1]) / dot(&y_hist[m - 1], &y_hist[m - 1])
+            } else {
+                1.0
+            };
+            for v in q.iter_mut() {
+                *v *= gamma;
+            }
         }
         for i in 0..m {
             let b = rho[i] * dot(&y_hist[i], &q);
@@ -151,8 +165,28 @@ impl History {
     }
 }
 
+/// A preconditioner: `v ↦ M v` for a fixed symmetric positive definite M that approximates
+/// the inverse Hessian (Nocedal & Wright 2006, section 7.2: the initial matrix of the
+/// recursion). It changes the path, not the minimum or the stopping rule.
+pub type Precond<'a> = dyn Fn(&[f64]) -> Vec<f64> + 'a;
+
 /// Minimise `f` from `x0`. `f(x, grad)` returns the objective and writes the gradient.
-pub fn minimize<F>(mut f: F, x0: Vec<f64>, opts: &LbfgsOptions) -> LbfgsResult
+pub fn minimize<F>(f: F, x0: Vec<f64>, opts: &LbfgsOptions) -> LbfgsResult
+where
+    F: FnMut(&[f64], &mut [f64]) -> f64,
+{
+    minimize_preconditioned(f, x0, opts, None)
+}
+
+/// [`minimize`] with the recursion's initial matrix γ M instead of γ I: on a badly
+/// conditioned objective (features with very unequal variances along some directions) a good
+/// M cuts the iterations; the first step and restarts follow −M g.
+pub fn minimize_preconditioned<F>(
+    mut f: F,
+    x0: Vec<f64>,
+    opts: &LbfgsOptions,
+    precond: Option<&Precond<'_>>,
+) -> LbfgsResult
 where
     F: FnMut(&[f64], &mut [f64]) -> f64,
 {
@@ -165,16 +199,21 @@ where
     let mut converged = max_abs(&g) <= opts.gtol || !fx.is_finite();
     let mut iter = 0usize;
     while !converged && iter < opts.max_iter {
-        let mut d = hist.direction(&g);
+        let mut d = hist.direction(&g, precond);
         let mut gd = dot(&g, &d);
         if gd.is_nan() || gd >= 0.0 {
-            // Not a descent direction: restart from steepest descent with a fresh memory.
+            // Not a descent direction: restart from (preconditioned) steepest descent with a
+            // fresh memory.
             hist.clear();
-            d = g.iter().map(|v| -v).collect();
+            d = hist.direction(&g, precond);
             gd = dot(&g, &d);
+            if gd.is_nan() || gd >= 0.0 {
+                d = g.iter().map(|v| -v).collect();
+                gd = dot(&g, &d);
+            }
         }
         let t0 = if hist.is_empty() {
-            (1.0 / dot(&g, &g).sqrt()).min(1.0)
+            (1.0 / dot(&d, &d).sqrt()).min(1.0)
         } else {
             1.0
         };

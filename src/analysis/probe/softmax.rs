@@ -13,7 +13,7 @@
 use ndarray::{s, Array2, ArrayView2, Axis};
 use rayon::prelude::*;
 
-use super::lbfgs::{minimize, LbfgsOptions};
+use super::lbfgs::{dot as lbfgs_dot, minimize_preconditioned, LbfgsOptions};
 use crate::analysis::linalg::exp_f32;
 
 mod kernel;
@@ -201,13 +201,27 @@ pub fn fit(
 }
 
 /// Fit on packed standardised rows `x` with labels `y` in `0..k`, optionally warm-started:
-/// each objective evaluation is one pass over `x` ([`cross_entropy_grad_packed`]).
+/// each objective evaluation is one pass over `x` ([`cross_entropy_grad_packed`]). The
+/// L-BFGS runs preconditioned by [`Preconditioner`]: the same objective and stopping rule,
+/// about a third of the iterations on activations (bench row 3: 94 -> 30).
 pub fn fit_packed(
     x: &PackedRows,
     y: &[u32],
     k: usize,
     settings: &FitSettings,
     init: Option<&[f64]>,
+) -> SoftmaxModel {
+    fit_packed_with(x, y, k, settings, init, true)
+}
+
+/// [`fit_packed`], with the preconditioner or with plain L-BFGS (`precondition` false).
+pub fn fit_packed_with(
+    x: &PackedRows,
+    y: &[u32],
+    k: usize,
+    settings: &FitSettings,
+    init: Option<&[f64]>,
+    precondition: bool,
 ) -> SoftmaxModel {
     let (n, d) = (x.nrows(), x.ncols());
     let np = d * k + k;
@@ -229,7 +243,13 @@ pub fn fit_packed(
         }
         (ce + 0.5 * inv_c * pen) / nf
     };
-    let r = minimize(objective, x0, &settings.lbfgs);
+    let r = if precondition {
+        let pc = Preconditioner::new(x.gram(), k, inv_c / nf);
+        let apply = |v: &[f64]| pc.apply(v);
+        minimize_preconditioned(objective, x0, &settings.lbfgs, Some(&apply))
+    } else {
+        minimize_preconditioned(objective, x0, &settings.lbfgs, None)
+    };
     let (w, b) = split_params(&r.x, d, k);
     SoftmaxModel {
         w,
@@ -239,6 +259,117 @@ pub fn fit_packed(
         iterations: r.iterations,
         evaluations: r.evaluations,
         converged: r.converged,
+    }
+}
+
+/// An approximate inverse Hessian of the fit's objective (L/n), for the L-BFGS recursion's
+/// initial matrix. The weights' Hessian is `(1/n) Σ_i (diag(p_i) − p_i p_iᵀ) ⊗ x_i x_iᵀ + λ I`;
+/// each class's block is approximated by `κ G + λ I`, with G the Gram matrix of the
+/// (standardised) rows per row and κ = (1 − 1/k)/k the curvature `p(1 − p)` of a uniform
+/// softmax, and the cross-class terms dropped; the intercepts' block by `κ`. `M v` solves with
+/// the Cholesky factor of `κ G + λ I`, the classes' columns in parallel (each column's
+/// arithmetic is the same whatever the split, so the result does not depend on the threads).
+pub struct Preconditioner {
+    l: Vec<f64>,
+    d: usize,
+    k: usize,
+    kappa: f64,
+}
+
+impl Preconditioner {
+    /// From the Gram matrix per row `gram` (d × d, symmetric positive semi-definite), the
+    /// number of classes `k` and the penalty per row `lambda` (> 0).
+    pub fn new(gram: &Array2<f64>, k: usize, lambda: f64) -> Self {
+        let d = gram.nrows();
+        let kf = k.max(2) as f64;
+        let kappa = (1.0 - 1.0 / kf) / kf;
+        let mut a: Vec<f64> = gram.iter().map(|v| v * kappa).collect();
+        for i in 0..d {
+            a[i * d + i] += lambda;
+        }
+        cholesky_in_place(&mut a, d);
+        Preconditioner { l: a, d, k, kappa }
+    }
+
+    /// `M v` for parameters laid out as the fit's (W row-major d × k, then b).
+    pub fn apply(&self, v: &[f64]) -> Vec<f64> {
+        let (d, k) = (self.d, self.k);
+        let groups = rayon::current_num_threads().clamp(1, k.div_ceil(8).max(1));
+        let width = k.div_ceil(groups);
+        let mut out = v.to_vec();
+        let cols: Vec<Vec<f64>> = (0..groups)
+            .into_par_iter()
+            .map(|gi| {
+                let (c0, c1) = ((gi * width).min(k), ((gi + 1) * width).min(k));
+                let w = c1 - c0;
+                let mut z: Vec<f64> = (0..d)
+                    .flat_map(|i| v[i * k + c0..i * k + c1].iter().copied())
+                    .collect();
+                self.solve(&mut z, w);
+                z
+            })
+            .collect();
+        for (gi, z) in cols.iter().enumerate() {
+            let c0 = (gi * width).min(k);
+            let w = ((gi + 1) * width).min(k) - c0;
+            for i in 0..d {
+                out[i * k + c0..i * k + c0 + w].copy_from_slice(&z[i * w..i * w + w]);
+            }
+        }
+        for a in out[d * k..].iter_mut() {
+            *a /= self.kappa;
+        }
+        out
+    }
+
+    /// Solve `L Lᵀ R = Z` in place for `z` (d × w, row-major).
+    fn solve(&self, z: &mut [f64], w: usize) {
+        let d = self.d;
+        if w == 0 {
+            return;
+        }
+        for i in 0..d {
+            let (done, rest) = z.split_at_mut(i * w);
+            let zi = &mut rest[..w];
+            for (zj, &lij) in done.chunks_exact(w).zip(&self.l[i * d..i * d + i]) {
+                for (a, b) in zi.iter_mut().zip(zj) {
+                    *a -= lij * b;
+                }
+            }
+            let inv = 1.0 / self.l[i * d + i];
+            zi.iter_mut().for_each(|a| *a *= inv);
+        }
+        for i in (0..d).rev() {
+            let inv = 1.0 / self.l[i * d + i];
+            let (head, rest) = z.split_at_mut(i * w);
+            let ri = &mut rest[..w];
+            ri.iter_mut().for_each(|a| *a *= inv);
+            for (zj, &lij) in head.chunks_exact_mut(w).zip(&self.l[i * d..i * d + i]) {
+                for (a, b) in zj.iter_mut().zip(ri.iter()) {
+                    *a -= lij * b;
+                }
+            }
+        }
+    }
+}
+
+/// Cholesky factor `A = L Lᵀ` of the symmetric matrix `a` (d × d, row-major), L written to the
+/// lower triangle. Pivots that are not positive (A not positive definite to rounding) are
+/// clamped to a tiny positive value, which keeps L usable as a preconditioner.
+fn cholesky_in_place(a: &mut [f64], d: usize) {
+    for j in 0..d {
+        let (above, from_j) = a.split_at_mut(j * d);
+        let rj = &mut from_j[..d];
+        let s = lbfgs_dot(&rj[..j], &rj[..j]);
+        let ljj = (rj[j] - s).max(1e-12 * rj[j].abs()).max(1e-300).sqrt();
+        rj[j] = ljj;
+        let _ = above;
+        let rj: Vec<f64> = rj[..j].to_vec();
+        for i in j + 1..d {
+            let ri = &mut a[i * d..i * d + d];
+            let s = lbfgs_dot(&ri[..j], &rj);
+            ri[j] = (ri[j] - s) / ljj;
+        }
     }
 }
 
@@ -283,6 +414,92 @@ pub fn argmax_rows(p: &ArrayView2<f32>) -> Vec<u32> {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    /// Rows whose features differ in scale by a factor of 30 and are correlated: the kind of
+    /// ill-conditioned problem the preconditioner is for. Labels from a fixed linear rule with
+    /// deterministic label noise, so the fit has a finite optimum.
+    fn anisotropic(n: usize, d: usize, k: usize) -> (Array2<f32>, Vec<u32>) {
+        let mut x = Array2::<f32>::zeros((n, d));
+        let mut y = Vec::with_capacity(n);
+        for i in 0..n {
+            let u = |j: usize| ((((i * 2654435761 + j * 40503) % 10007) as f32) / 10007.0) - 0.5;
+            let base = u(d);
+            for j in 0..d {
+                let scale = 30f32.powf(-(j as f32) / (d as f32 - 1.0));
+                x[[i, j]] = scale * (u(j) + 0.8 * base);
+            }
+            let score: f32 = (0..d).map(|j| x[[i, j]] * ((j % 3) as f32 - 1.0)).sum();
+            let mut c = ((score * 40.0).rem_euclid(k as f32)) as usize % k;
+            if i % 7 == 0 {
+                c = (c + 1) % k;
+            }
+            y.push(c as u32);
+        }
+        (x, y)
+    }
+
+    #[test]
+    fn preconditioner_solves_its_system() {
+        // M v must be (κ G + λ I)⁻¹ v per class column, and v / κ for the intercepts.
+        let (x, _) = anisotropic(300, 7, 3);
+        let packed = PackedRows::pack(&x.view(), None);
+        let g = packed.gram_sample(usize::MAX);
+        let direct = crate::analysis::linalg::at_b(&x.view(), &x.view()).mapv(|v| v / 300.0);
+        for (a, b) in g.iter().zip(direct.iter()) {
+            assert!((a - b).abs() < 1e-9 * (1.0 + b.abs()), "{a} vs {b}");
+        }
+        let (k, lambda) = (3usize, 0.01);
+        let pc = Preconditioner::new(&g, k, lambda);
+        let kappa = (1.0 - 1.0 / 3.0) / 3.0;
+        let v: Vec<f64> = (0..7 * 3 + 3).map(|i| ((i * 37 % 11) as f64) - 5.0).collect();
+        let r = pc.apply(&v);
+        for c in 0..k {
+            for i in 0..7 {
+                let ar: f64 = (0..7)
+                    .map(|j| (kappa * g[[i, j]] + if i == j { lambda } else { 0.0 }) * r[j * k + c])
+                    .sum();
+                assert!((ar - v[i * k + c]).abs() < 1e-9, "row {i} class {c}: {ar} vs {}", v[i * k + c]);
+            }
+        }
+        for c in 0..k {
+            assert!((r[7 * k + c] - v[7 * k + c] / kappa).abs() < 1e-12);
+        }
+    }
+
+    #[test]
+    fn preconditioning_reaches_the_same_minimum_in_fewer_iterations() {
+        // The preconditioner changes the path only: on an ill-conditioned problem both runs
+        // must stop at the same objective and predictions, the preconditioned one sooner.
+        let (x, y) = anisotropic(2000, 24, 4);
+        let std = Standardizer::fit(&x.view());
+        let mut xs = x.clone();
+        std.apply(&mut xs);
+        let packed = PackedRows::pack(&xs.view(), None);
+        let settings = FitSettings {
+            c: 1.0 / (1e-4 * 2000.0),
+            lbfgs: LbfgsOptions {
+                max_iter: 2000,
+                gtol: 1e-5,
+                ftol: 0.0,
+                ..Default::default()
+            },
+        };
+        let plain = fit_packed_with(&packed, &y, 4, &settings, None, false);
+        let pre = fit_packed_with(&packed, &y, 4, &settings, None, true);
+        assert!(plain.converged && pre.converged, "{plain:?} {pre:?}");
+        let rel = (pre.objective - plain.objective).abs() / plain.objective;
+        assert!(rel < 1e-6, "objective {} vs {}", pre.objective, plain.objective);
+        assert!(
+            pre.iterations < plain.iterations,
+            "preconditioned {} iterations, plain {}",
+            pre.iterations,
+            plain.iterations
+        );
+        let p1 = argmax_rows(&plain.predict_proba(&xs.view()).view());
+        let p2 = argmax_rows(&pre.predict_proba(&xs.view()).view());
+        let same = p1.iter().zip(&p2).filter(|(a, b)| a == b).count();
+        assert!(same as f64 >= 0.999 * p1.len() as f64, "{same} of {}", p1.len());
+    }
 
     #[test]
     fn gradient_matches_finite_differences() {

@@ -33,6 +33,7 @@ pub struct PackedRows {
     n: usize,
     d: usize,
     data: Vec<f32>,
+    gram: std::sync::OnceLock<ndarray::Array2<f64>>,
 }
 
 impl PackedRows {
@@ -69,7 +70,45 @@ impl PackedRows {
                     }
                 }
             });
-        PackedRows { n, d, data }
+        PackedRows {
+            n,
+            d,
+            data,
+            gram: std::sync::OnceLock::new(),
+        }
+    }
+
+    /// Rows the Gram matrix of [`PackedRows::gram`] is taken from (spread through the matrix).
+    pub const GRAM_ROWS: usize = 8192;
+
+    /// [`PackedRows::gram_sample`] over [`PackedRows::GRAM_ROWS`] rows, computed once per
+    /// packed matrix (a penalty search fits the same rows several times).
+    pub fn gram(&self) -> &ndarray::Array2<f64> {
+        self.gram.get_or_init(|| self.gram_sample(Self::GRAM_ROWS))
+    }
+
+    /// `Σ x xᵀ / m` over about `max_rows` rows spread evenly through the matrix (whole
+    /// panels; all rows when there are fewer), accumulated in f64 in panel order.
+    pub fn gram_sample(&self, max_rows: usize) -> ndarray::Array2<f64> {
+        let d = self.d;
+        let panels = self.n.div_ceil(MR);
+        let want = max_rows.div_ceil(MR).max(1);
+        let stride = panels.div_ceil(want).max(1);
+        let chosen: Vec<usize> = (0..panels).step_by(stride).collect();
+        let rows: usize = chosen.iter().map(|&p| MR.min(self.n - p * MR)).sum();
+        let mut dense = ndarray::Array2::<f32>::zeros((chosen.len() * MR, d));
+        for (ci, &p) in chosen.iter().enumerate() {
+            let panel = &self.data[p * MR * d..(p + 1) * MR * d];
+            for r in 0..MR {
+                let mut row = dense.row_mut(ci * MR + r);
+                for (j, v) in row.iter_mut().enumerate() {
+                    *v = panel[j * MR + r];
+                }
+            }
+        }
+        let mut g = crate::analysis::linalg::at_b(&dense.view(), &dense.view());
+        g.mapv_inplace(|v| v / rows.max(1) as f64);
+        g
     }
 
     /// Number of rows.
