@@ -54,7 +54,7 @@ pub struct LbfgsResult {
 /// not depend on the machine or thread count): one serial chain of additions was bound by the
 /// adder's latency, and on a 768-wide, 100-class probe the L-BFGS direction (20 such dots of
 /// 77 000 values per iteration) ran on one core for a tenth of the fit.
-pub(crate) fn dot(a: &[f64], b: &[f64]) -> f64 {
+fn dot(a: &[f64], b: &[f64]) -> f64 {
     let n = a.len().min(b.len());
     let (a, b) = (&a[..n], &b[..n]);
     let mut acc = [0.0f64; 8];
