@@ -203,6 +203,43 @@ fn top_eigen_psd(c: &Array2<f64>, k: usize, seed: u64) -> (Vec<f64>, Vec<Vec<f64
     (s.into_iter().take(k).collect(), vecs)
 }
 
+/// Rough top `k` eigenpairs (values decreasing, vectors as the columns of a d × k matrix) of a
+/// symmetric positive semi-definite matrix: `iterations` steps of block subspace iteration
+/// on `l ≥ k` columns from a seeded Gaussian start, then one Rayleigh–Ritz step (Halko,
+/// Martinsson & Tropp 2011, algorithm 4.4 with 5.3). For uses that need the dominant
+/// directions, not converged values.
+pub fn top_eigen_rough(
+    c: &Array2<f64>,
+    k: usize,
+    l: usize,
+    iterations: usize,
+    seed: u64,
+) -> (Vec<f64>, Array2<f64>) {
+    let d = c.nrows();
+    let l = l.max(k).min(d);
+    let k = k.min(l);
+    let mut rng = ChaCha8Rng::seed_from_u64(seed);
+    let mut q = Array2::from_shape_fn((d, l), |_| {
+        let u1: f64 = rng.random::<f64>().max(1e-300);
+        let u2: f64 = rng.random::<f64>();
+        (-2.0 * u1.ln()).sqrt() * (std::f64::consts::TAU * u2).cos()
+    });
+    let orth = |m: &Array2<f64>| -> Array2<f64> {
+        let mut cols: Vec<Vec<f64>> = m.axis_iter(Axis(1)).map(|c| c.to_vec()).collect();
+        orthonormalise(&mut cols);
+        Array2::from_shape_fn((d, cols.len()), |(i, j)| cols[j][i])
+    };
+    q = orth(&q);
+    for _ in 0..iterations {
+        q = orth(&c.dot(&q));
+    }
+    let t = q.t().dot(&c.dot(&q));
+    let cols: Vec<Vec<f64>> = t.axis_iter(Axis(1)).map(|c| c.to_vec()).collect();
+    let (s, u, _) = jacobi_svd(cols);
+    let ut = Array2::from_shape_fn((l, k), |(i, j)| u[j][i]);
+    (s.into_iter().take(k).collect(), q.dot(&ut))
+}
+
 /// Fit the top `k` components of `x` (frames × dim).
 pub fn fit(x: &ArrayView2<f32>, k: usize, solver: PcaSolver, seed: u64) -> Pca {
     let (n, d) = x.dim();

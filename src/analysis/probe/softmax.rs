@@ -204,7 +204,7 @@ pub fn fit(
 /// each objective evaluation is one pass over `x` ([`cross_entropy_grad_packed`]). With at
 /// least [`PRECONDITION_MIN_ROWS_PER_FEATURE`] rows per feature the L-BFGS runs
 /// preconditioned by [`Preconditioner`]: the same objective and stopping rule, about a third
-/// of the iterations on activations (bench row 3: 94 -> 30).
+/// of the iterations on activations (bench row 3: 94 -> 35).
 pub fn fit_packed(
     x: &PackedRows,
     y: &[u32],
@@ -216,13 +216,12 @@ pub fn fit_packed(
     fit_packed_with(x, y, k, settings, init, precondition)
 }
 
-/// The preconditioner is used when the fit has at least this many rows per feature. Its cost
-/// (a Cholesky factor per fit, d³/6; two triangular solves per iteration, 2 d² k) against the
-/// evaluations it saves (each 2 n d k) breaks even near n = 6 d on a 768-wide layer with 40
-/// classes (probe of phone and speaker on layer 6 of bench row 10's capture, 2 cores: 3 333
-/// training frames 4.2 s with it against 3.8 s without, 5 000 frames 4.6 s against 4.7 s,
-/// 8 000 frames 5.0 s against 5.8 s; 2026-12-03).
-pub const PRECONDITION_MIN_ROWS_PER_FEATURE: usize = 8;
+/// The preconditioner is used when the fit has at least this many rows per feature. Its
+/// setup (a Gram matrix of up to 8 192 rows and its top eigenpairs, once per packed matrix)
+/// costs about as much as a few evaluations (each 2 n d k); with fewer rows than features
+/// the evaluations it saves are cheap. Common practice, not measured below n = 3 333, d = 768
+/// (where it saves 15-20 % of the probe).
+pub const PRECONDITION_MIN_ROWS_PER_FEATURE: usize = 1;
 
 /// [`fit_packed`], with the preconditioner or with plain L-BFGS (`precondition` false).
 pub fn fit_packed_with(
@@ -254,7 +253,7 @@ pub fn fit_packed_with(
         (ce + 0.5 * inv_c * pen) / nf
     };
     let r = if precondition {
-        let pc = Preconditioner::new(x.gram(), k, inv_c / nf);
+        let pc = Preconditioner::new(x.spectrum(), k, inv_c / nf);
         let apply = |v: &[f64]| pc.apply(v);
         minimize_preconditioned(objective, x0, &settings.lbfgs, Some(&apply))
     } else {
@@ -272,248 +271,111 @@ pub fn fit_packed_with(
     }
 }
 
+/// The dominant directions of a training matrix's rows, for [`Preconditioner`]: the top
+/// [`Spectrum::RANK`] eigenpairs of the rows' Gram matrix per row `G` (from
+/// [`PackedRows::GRAM_ROWS`] rows spread through the matrix, by a few steps of subspace
+/// iteration) and the mean of its other eigenvalues. Computed once per packed matrix
+/// ([`PackedRows::spectrum`]); it does not depend on the penalty.
+#[derive(Clone, Debug)]
+pub struct Spectrum {
+    /// Eigenvectors, d × r.
+    vectors: Array2<f64>,
+    /// Their eigenvalues, decreasing.
+    values: Vec<f64>,
+    /// Mean of the remaining d − r eigenvalues (trace minus the kept ones, over d − r).
+    rest: f64,
+}
+
+impl Spectrum {
+    /// Eigenpairs kept: on bench row 3 (768 wide, 40 classes) rank 16, 32 and 64 took 46,
+    /// 41 and 35 iterations (94 without), rank 128 33 at a higher cost per fit; and the probe
+    /// of phone and speaker on a 768-wide layer at 3 333 training frames was fastest with 64
+    /// (2026-12-03).
+    pub const RANK: usize = 64;
+    /// Extra columns of the subspace iteration, and its steps.
+    const OVERSAMPLE: usize = 16;
+    const STEPS: usize = 4;
+
+    /// From a Gram matrix per row (d × d, symmetric positive semi-definite).
+    pub fn of_gram(gram: &Array2<f64>) -> Spectrum {
+        let d = gram.nrows();
+        let r = Self::RANK.min(d);
+        let (values, vectors) = crate::analysis::map::pca::top_eigen_rough(
+            gram,
+            r,
+            r + Self::OVERSAMPLE,
+            Self::STEPS,
+            0x5eed_0f_e16e,
+        );
+        let trace: f64 = (0..d).map(|i| gram[[i, i]]).sum();
+        let kept: f64 = values.iter().sum();
+        let rest = if d > values.len() {
+            ((trace - kept) / (d - values.len()) as f64).max(0.0)
+        } else {
+            0.0
+        };
+        Spectrum {
+            vectors,
+            values,
+            rest,
+        }
+    }
+}
+
 /// An approximate inverse Hessian of the fit's objective (L/n), for the L-BFGS recursion's
 /// initial matrix. The weights' Hessian is `(1/n) Σ_i (diag(p_i) − p_i p_iᵀ) ⊗ x_i x_iᵀ + λ I`;
 /// each class's block is approximated by `κ G + λ I`, with G the Gram matrix of the
 /// (standardised) rows per row and κ = (1 − 1/k)/k the curvature `p(1 − p)` of a uniform
-/// softmax, and the cross-class terms dropped; the intercepts' block by `κ`. `M v` solves with
-/// the Cholesky factor of `κ G + λ I`, the classes' columns in parallel (each column's
-/// arithmetic is the same whatever the split, so the result does not depend on the threads).
-pub struct Preconditioner {
-    /// The Cholesky factor, rounded to f32 (row-major, lower triangle).
-    l: Vec<f32>,
-    d: usize,
+/// softmax, and the cross-class terms dropped; the intercepts' block by `κ`. G is replaced
+/// by its top eigenpairs plus the mean of the other eigenvalues ([`Spectrum`]), so that
+/// `M v = c v + V diag(1/(κ e + λ) − c) Vᵀ v` with `c = 1/(κ ē + λ)`: two thin products per
+/// application, and no factorisation per penalty.
+pub struct Preconditioner<'a> {
+    spectrum: &'a Spectrum,
+    /// `1/(κ e + λ) − c` per kept eigenvector.
+    scale: Vec<f64>,
+    /// `c`, for the directions outside the kept ones.
+    c_rest: f64,
     k: usize,
     kappa: f64,
 }
 
-/// Columns per group of [`Preconditioner::apply`] are a multiple of this (one AVX2 register
-/// of f32).
-const PC_LANES: usize = 8;
-
-impl Preconditioner {
-    /// From the Gram matrix per row `gram` (d × d, symmetric positive semi-definite), the
-    /// number of classes `k` and the penalty per row `lambda` (> 0).
-    pub fn new(gram: &Array2<f64>, k: usize, lambda: f64) -> Self {
-        let d = gram.nrows();
+impl<'a> Preconditioner<'a> {
+    /// From the rows' [`Spectrum`], the number of classes `k` and the penalty per row
+    /// `lambda` (> 0).
+    pub fn new(spectrum: &'a Spectrum, k: usize, lambda: f64) -> Self {
         let kf = k.max(2) as f64;
         let kappa = (1.0 - 1.0 / kf) / kf;
-        let mut a: Vec<f64> = gram.iter().map(|v| v * kappa).collect();
-        for i in 0..d {
-            a[i * d + i] += lambda;
-        }
-        cholesky(&mut a, d);
+        let c_rest = 1.0 / (kappa * spectrum.rest + lambda);
+        let scale = spectrum
+            .values
+            .iter()
+            .map(|&e| 1.0 / (kappa * e.max(0.0) + lambda) - c_rest)
+            .collect();
         Preconditioner {
-            l: a.iter().map(|&v| v as f32).collect(),
-            d,
+            spectrum,
+            scale,
+            c_rest,
             k,
             kappa,
         }
     }
 
-    /// `M v` for parameters laid out as the fit's (W row-major d × k, then b). The solves run
-    /// in f32 (M only steers the search; the objective, gradient and stopping rule stay in
-    /// f64), on groups of class columns in parallel; each column's arithmetic is the same
-    /// whatever the grouping, so the result does not depend on the thread count.
+    /// `M v` for parameters laid out as the fit's (W row-major d × k, then b).
     pub fn apply(&self, v: &[f64]) -> Vec<f64> {
-        let (d, k) = (self.d, self.k);
-        let groups = rayon::current_num_threads().clamp(1, k.div_ceil(PC_LANES).max(1));
-        let width = k.div_ceil(groups).div_ceil(PC_LANES) * PC_LANES;
-        let starts: Vec<usize> = (0..k).step_by(width).collect();
-        let mut out = v.to_vec();
-        let cols: Vec<Vec<f32>> = starts
-            .par_iter()
-            .map(|&c0| {
-                let c1 = (c0 + width).min(k);
-                let mut z = vec![0f32; d * width];
-                for (zi, vi) in z.chunks_exact_mut(width).zip(v.chunks_exact(k)) {
-                    for (a, &b) in zi.iter_mut().zip(&vi[c0..c1]) {
-                        *a = b as f32;
-                    }
-                }
-                solve_lower_upper(&self.l, d, &mut z, width);
-                z
-            })
-            .collect();
-        for (&c0, z) in starts.iter().zip(&cols) {
-            let c1 = (c0 + width).min(k);
-            for (oi, zi) in out.chunks_exact_mut(k).take(d).zip(z.chunks_exact(width)) {
-                for (a, &b) in oi[c0..c1].iter_mut().zip(zi) {
-                    *a = b as f64;
-                }
-            }
+        let k = self.k;
+        let d = self.spectrum.vectors.nrows();
+        let q = ndarray::ArrayView2::from_shape((d, k), &v[..d * k]).expect("d × k weights");
+        let mut p = self.spectrum.vectors.t().dot(&q);
+        for (mut row, s) in p.outer_iter_mut().zip(&self.scale) {
+            row.mapv_inplace(|x| x * s);
         }
-        for a in out[d * k..].iter_mut() {
-            *a /= self.kappa;
-        }
+        let mut w = self.spectrum.vectors.dot(&p);
+        w.zip_mut_with(&q, |o, &qv| *o += self.c_rest * qv);
+        let mut out: Vec<f64> = w.iter().copied().collect();
+        out.extend(v[d * k..].iter().map(|x| x / self.kappa));
         out
     }
-}
-
-/// Solve `L Lᵀ R = Z` in place for `z` (d × w, row-major), L (d × d, row-major, lower), with
-/// the loops compiled for AVX2 where the machine has it (no fused operations, so the values
-/// are the same either way).
-fn solve_lower_upper(l: &[f32], d: usize, z: &mut [f32], w: usize) {
-    #[cfg(target_arch = "x86_64")]
-    if std::arch::is_x86_feature_detected!("avx2") {
-        // SAFETY: AVX2 is present.
-        return unsafe { solve_avx2(l, d, z, w) };
-    }
-    solve_any(l, d, z, w, false)
-}
-
-/// [`solve_any`] compiled with AVX2.
-///
-/// # Safety
-/// AVX2 must be available.
-#[cfg(target_arch = "x86_64")]
-#[target_feature(enable = "avx2")]
-unsafe fn solve_avx2(l: &[f32], d: usize, z: &mut [f32], w: usize) {
-    solve_any(l, d, z, w, true)
-}
-
-#[inline(always)]
-fn solve_any(l: &[f32], d: usize, z: &mut [f32], w: usize, avx: bool) {
-    const L8: usize = PC_LANES;
-    // `apply` makes w a multiple of 8 (padding columns are zeros and stay zeros)
-    assert!(
-        w.is_multiple_of(L8),
-        "solve width {w} is not a multiple of {L8}"
-    );
-    if w == 0 {
-        return;
-    }
-    // Forward, L Y = Z: row i less Σ_{j<i} l_ij y_j, per chunk of 8 columns in 4 partial sums
-    // over j (j mod 4), so that no chain runs through one register or one memory slot.
-    for i in 0..d {
-        let (done, rest) = z.split_at_mut(i * w);
-        let li = &l[i * d..i * d + i];
-        let lii = l[i * d + i];
-        for (c, zc) in rest[..w].chunks_exact_mut(L8).enumerate() {
-            let mut acc = [[0f32; L8]; 4];
-            let mut js = li.chunks_exact(4);
-            let mut j = 0;
-            for l4 in js.by_ref() {
-                for (t, &lij) in l4.iter().enumerate() {
-                    let at = (j + t) * w + c * L8;
-                    let zj: &[f32; L8] = done[at..at + L8].try_into().expect("chunk of 8");
-                    for u in 0..L8 {
-                        acc[t][u] += lij * zj[u];
-                    }
-                }
-                j += 4;
-            }
-            for (t, &lij) in js.remainder().iter().enumerate() {
-                let zj = &done[(j + t) * w + c * L8..(j + t) * w + c * L8 + L8];
-                for (a, &b) in acc[t].iter_mut().zip(zj) {
-                    *a += lij * b;
-                }
-            }
-            for (u, v) in zc.iter_mut().enumerate() {
-                let sum = (acc[0][u] + acc[1][u]) + (acc[2][u] + acc[3][u]);
-                *v = (*v - sum) / lii;
-            }
-        }
-    }
-    // Backward, Lᵀ R = Y: r_i = y_i / l_ii, then y_j −= l_ij r_i for j < i (rows, no chain).
-    for i in (0..d).rev() {
-        let lii = l[i * d + i];
-        let (head, rest) = z.split_at_mut(i * w);
-        let ri = &mut rest[..w];
-        ri.iter_mut().for_each(|a| *a /= lii);
-        let ri: &[f32] = ri;
-        for (zj, &lij) in head.chunks_exact_mut(w).zip(&l[i * d..i * d + i]) {
-            sub_scaled(zj, lij, ri, avx);
-        }
-    }
-}
-
-/// `z −= a · r` element by element (a product, then a difference: the same rounding with or
-/// without AVX2). `avx` says AVX2 may be used.
-#[inline(always)]
-fn sub_scaled(z: &mut [f32], a: f32, r: &[f32], avx: bool) {
-    #[cfg(target_arch = "x86_64")]
-    if avx {
-        use std::arch::x86_64::{
-            _mm256_loadu_ps, _mm256_mul_ps, _mm256_set1_ps, _mm256_storeu_ps, _mm256_sub_ps,
-        };
-        let n = z.len().min(r.len()) / 8 * 8;
-        // SAFETY: the caller found AVX2; every access is within the first `n` values of both
-        // slices, read and written unaligned.
-        unsafe {
-            let av = _mm256_set1_ps(a);
-            for o in (0..n).step_by(8) {
-                let zp = z.as_mut_ptr().add(o);
-                let p = _mm256_mul_ps(av, _mm256_loadu_ps(r.as_ptr().add(o)));
-                _mm256_storeu_ps(zp, _mm256_sub_ps(_mm256_loadu_ps(zp), p));
-            }
-        }
-        for (zv, &rv) in z[n..].iter_mut().zip(&r[n..]) {
-            *zv -= a * rv;
-        }
-        return;
-    }
-    let _ = avx;
-    for (zv, &rv) in z.iter_mut().zip(r) {
-        *zv -= a * rv;
-    }
-}
-
-/// Cholesky factor `A = L Lᵀ` of the symmetric matrix `a` (d × d, row-major), L written to the
-/// lower triangle. Pivots that are not positive (A not positive definite to rounding) are
-/// clamped to a tiny positive value, which keeps L usable as a preconditioner. Compiled for
-/// AVX2 where present (same values).
-fn cholesky(a: &mut [f64], d: usize) {
-    #[cfg(target_arch = "x86_64")]
-    if std::arch::is_x86_feature_detected!("avx2") {
-        // SAFETY: AVX2 is present.
-        return unsafe { cholesky_avx2(a, d) };
-    }
-    cholesky_any(a, d)
-}
-
-/// [`cholesky_any`] compiled with AVX2.
-///
-/// # Safety
-/// AVX2 must be available.
-#[cfg(target_arch = "x86_64")]
-#[target_feature(enable = "avx2")]
-unsafe fn cholesky_avx2(a: &mut [f64], d: usize) {
-    cholesky_any(a, d)
-}
-
-#[inline(always)]
-fn cholesky_any(a: &mut [f64], d: usize) {
-    for j in 0..d {
-        let rj: Vec<f64> = a[j * d..j * d + j].to_vec();
-        let s = dot8(&rj, &rj);
-        let ajj = a[j * d + j];
-        let ljj = (ajj - s).max(1e-12 * ajj.abs()).max(1e-300).sqrt();
-        a[j * d + j] = ljj;
-        for i in j + 1..d {
-            let s = dot8(&a[i * d..i * d + j], &rj);
-            a[i * d + j] = (a[i * d + j] - s) / ljj;
-        }
-    }
-}
-
-/// `a · b` in 8 interleaved partial sums combined in a fixed order (vectorises; same value
-/// on every instruction set).
-#[inline(always)]
-fn dot8(a: &[f64], b: &[f64]) -> f64 {
-    let mut acc = [0.0f64; 8];
-    let (ca, cb) = (a.chunks_exact(8), b.chunks_exact(8));
-    let (ra, rb) = (ca.remainder(), cb.remainder());
-    for (xa, xb) in ca.zip(cb) {
-        for ((s, x), y) in acc.iter_mut().zip(xa).zip(xb) {
-            *s += x * y;
-        }
-    }
-    let mut tail = 0.0;
-    for (x, y) in ra.iter().zip(rb) {
-        tail += x * y;
-    }
-    ((acc[0] + acc[4]) + (acc[1] + acc[5])) + ((acc[2] + acc[6]) + (acc[3] + acc[7])) + tail
 }
 
 impl SoftmaxModel {
@@ -583,7 +445,8 @@ mod tests {
 
     #[test]
     fn preconditioner_solves_its_system() {
-        // M v must be (κ G + λ I)⁻¹ v per class column, and v / κ for the intercepts.
+        // With d below the kept rank the spectrum is exact, so M v must be
+        // (κ G + λ I)⁻¹ v per class column, and v / κ for the intercepts.
         let (x, _) = anisotropic(300, 7, 3);
         let packed = PackedRows::pack(&x.view(), None);
         let g = packed.gram_sample(usize::MAX);
@@ -592,7 +455,8 @@ mod tests {
             assert!((a - b).abs() < 1e-9 * (1.0 + b.abs()), "{a} vs {b}");
         }
         let (k, lambda) = (3usize, 0.01);
-        let pc = Preconditioner::new(&g, k, lambda);
+        let spectrum = Spectrum::of_gram(&g);
+        let pc = Preconditioner::new(&spectrum, k, lambda);
         let kappa = (1.0 - 1.0 / 3.0) / 3.0;
         let v: Vec<f64> = (0..7 * 3 + 3)
             .map(|i| ((i * 37 % 11) as f64) - 5.0)
@@ -603,16 +467,39 @@ mod tests {
                 let ar: f64 = (0..7)
                     .map(|j| (kappa * g[[i, j]] + if i == j { lambda } else { 0.0 }) * r[j * k + c])
                     .sum();
+                let want = v[i * k + c];
                 assert!(
-                    (ar - v[i * k + c]).abs() < 1e-4 * (1.0 + v[i * k + c].abs()),
-                    "row {i} class {c}: {ar} vs {}",
-                    v[i * k + c]
+                    (ar - want).abs() < 1e-8 * (1.0 + want.abs()),
+                    "row {i} class {c}: {ar} vs {want}"
                 );
             }
         }
         for c in 0..k {
             assert!((r[7 * k + c] - v[7 * k + c] / kappa).abs() < 1e-12);
         }
+    }
+
+    #[test]
+    fn spectrum_keeps_the_top_eigenvalues_and_the_mean_of_the_rest() {
+        // A diagonal Gram matrix with eigenvalues 0.93^i, i = 0..99: the kept 64 must be the
+        // largest (to 1 % after 4 subspace steps) and `rest` the mean of the other 36.
+        let d = 100;
+        let e: Vec<f64> = (0..d).map(|i| 0.93f64.powi(i as i32)).collect();
+        let g = Array2::from_shape_fn((d, d), |(i, j)| if i == j { e[i] } else { 0.0 });
+        let sp = Spectrum::of_gram(&g);
+        assert_eq!(sp.values.len(), Spectrum::RANK);
+        for (i, (&got, &want)) in sp.values.iter().zip(&e).enumerate() {
+            assert!(
+                (got - want).abs() < 0.01 * want,
+                "eigenvalue {i}: {got} vs {want}"
+            );
+        }
+        let rest_want = e[Spectrum::RANK..].iter().sum::<f64>() / (d - Spectrum::RANK) as f64;
+        assert!(
+            (sp.rest - rest_want).abs() < 0.05 * rest_want,
+            "{} vs {rest_want}",
+            sp.rest
+        );
     }
 
     #[test]

@@ -33,7 +33,7 @@ pub struct PackedRows {
     n: usize,
     d: usize,
     data: Vec<f32>,
-    gram: std::sync::OnceLock<ndarray::Array2<f64>>,
+    spectrum: std::sync::OnceLock<super::Spectrum>,
 }
 
 impl PackedRows {
@@ -74,17 +74,20 @@ impl PackedRows {
             n,
             d,
             data,
-            gram: std::sync::OnceLock::new(),
+            spectrum: std::sync::OnceLock::new(),
         }
     }
 
-    /// Rows the Gram matrix of [`PackedRows::gram`] is taken from (spread through the matrix).
+    /// Rows the Gram matrix behind [`PackedRows::spectrum`] is taken from (spread through the
+    /// matrix).
     pub const GRAM_ROWS: usize = 8192;
 
-    /// [`PackedRows::gram_sample`] over [`PackedRows::GRAM_ROWS`] rows, computed once per
-    /// packed matrix (a penalty search fits the same rows several times).
-    pub fn gram(&self) -> &ndarray::Array2<f64> {
-        self.gram.get_or_init(|| self.gram_sample(Self::GRAM_ROWS))
+    /// The rows' [`super::Spectrum`] from [`PackedRows::gram_sample`] over
+    /// [`PackedRows::GRAM_ROWS`] rows, computed once per packed matrix (a penalty search fits
+    /// the same rows several times).
+    pub fn spectrum(&self) -> &super::Spectrum {
+        self.spectrum
+            .get_or_init(|| super::Spectrum::of_gram(&self.gram_sample(Self::GRAM_ROWS)))
     }
 
     /// `Σ x xᵀ / m` over about `max_rows` rows spread evenly through the matrix (whole
