@@ -190,7 +190,8 @@ fn per_label_beyond_the_data_takes_what_exists_and_says_so() {
     assert!(o.status.success());
     let err = String::from_utf8_lossy(&o.stderr);
     assert!(
-        err.contains("--per-label 1000") && err.contains("fewer frames"),
+        err.contains("--per-label 1000")
+            && err.contains("cells hold fewer than the 1000 frames taken per cell"),
         "{err}"
     );
     let frames: Array1<u64> = ndarray_npy::read_npy(out.join("maps/frames.npy")).unwrap();
