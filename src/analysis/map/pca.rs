@@ -143,6 +143,24 @@ fn from_cols(cols: &[Vec<f64>]) -> Array2<f32> {
     Array2::from_shape_fn((m, cols.len()), |(i, j)| cols[j][i] as f32)
 }
 
+/// A d × l block of standard normal values (Box–Muller on a seeded ChaCha8 stream): the start
+/// of a subspace iteration.
+fn gaussian_block(d: usize, l: usize, seed: u64) -> Array2<f64> {
+    let mut rng = ChaCha8Rng::seed_from_u64(seed);
+    Array2::from_shape_fn((d, l), |_| {
+        let u1: f64 = rng.random::<f64>().max(1e-300);
+        let u2: f64 = rng.random::<f64>();
+        (-2.0 * u1.ln()).sqrt() * (std::f64::consts::TAU * u2).cos()
+    })
+}
+
+/// The columns of `m`, orthonormalised ([`orthonormalise`]).
+fn orth_columns(m: &Array2<f64>) -> Array2<f64> {
+    let mut cols: Vec<Vec<f64>> = m.axis_iter(Axis(1)).map(|c| c.to_vec()).collect();
+    orthonormalise(&mut cols);
+    Array2::from_shape_fn((m.nrows(), cols.len()), |(i, j)| cols[j][i])
+}
+
 /// Top `k` eigenpairs (values decreasing, vectors as columns) of a symmetric positive
 /// semi-definite matrix, by block subspace iteration on `2k + 10` columns (Golub & Van Loan,
 /// Matrix Computations, §8.2.4) with a Rayleigh–Ritz step every 5 iterations; stops when the
@@ -150,17 +168,8 @@ fn from_cols(cols: &[Vec<f64>]) -> Array2<f32> {
 fn top_eigen_psd(c: &Array2<f64>, k: usize, seed: u64) -> (Vec<f64>, Vec<Vec<f64>>) {
     let d = c.nrows();
     let l = (2 * k + OVERSAMPLING).min(d);
-    let mut rng = ChaCha8Rng::seed_from_u64(seed);
-    let mut q = Array2::from_shape_fn((d, l), |_| {
-        let u1: f64 = rng.random::<f64>().max(1e-300);
-        let u2: f64 = rng.random::<f64>();
-        (-2.0 * u1.ln()).sqrt() * (std::f64::consts::TAU * u2).cos()
-    });
-    let orth = |m: &Array2<f64>| -> Array2<f64> {
-        let mut cols: Vec<Vec<f64>> = m.axis_iter(Axis(1)).map(|c| c.to_vec()).collect();
-        orthonormalise(&mut cols);
-        Array2::from_shape_fn((d, cols.len()), |(i, j)| cols[j][i])
-    };
+    let mut q = gaussian_block(d, l, seed);
+    let orth = orth_columns;
     // Rayleigh–Ritz on the current basis: eigenpairs of Qᵀ C Q (l × l, PSD, so its singular
     // values and left vectors are its eigenpairs)
     let ritz = |q: &Array2<f64>| -> (Vec<f64>, Vec<Vec<f64>>) {
@@ -218,17 +227,8 @@ pub fn top_eigen_rough(
     let d = c.nrows();
     let l = l.max(k).min(d);
     let k = k.min(l);
-    let mut rng = ChaCha8Rng::seed_from_u64(seed);
-    let mut q = Array2::from_shape_fn((d, l), |_| {
-        let u1: f64 = rng.random::<f64>().max(1e-300);
-        let u2: f64 = rng.random::<f64>();
-        (-2.0 * u1.ln()).sqrt() * (std::f64::consts::TAU * u2).cos()
-    });
-    let orth = |m: &Array2<f64>| -> Array2<f64> {
-        let mut cols: Vec<Vec<f64>> = m.axis_iter(Axis(1)).map(|c| c.to_vec()).collect();
-        orthonormalise(&mut cols);
-        Array2::from_shape_fn((d, cols.len()), |(i, j)| cols[j][i])
-    };
+    let mut q = gaussian_block(d, l, seed);
+    let orth = orth_columns;
     q = orth(&q);
     for _ in 0..iterations {
         q = orth(&c.dot(&q));
