@@ -134,26 +134,19 @@ impl History {
                 *qj -= a[i] * yj;
             }
         }
-        if let Some(pc) = precond {
-            let gamma = if m > 0 {
+        let gamma = match (m, precond) {
+            (0, _) => 1.0,
+            (_, Some(pc)) => {
                 let my = pc(&y_hist[m - 1]);
                 dot(&s_hist[m - 1], &y_hist[m - 1]) / dot(&y_hist[m - 1], &my)
-            } else {
-                1.0
-            };
+            }
+            (_, None) => dot(&s_hist[m - 1], &y_hist[m - 1]) / dot(&y_hist[m - 1], &y_hist[m - 1]),
+        };
+        if let Some(pc) = precond {
             q = pc(&q);
-            for v in q.iter_mut() {
-                *v *= gamma;
-            }
-        } else {
-            let gamma = if m > 0 {
-                dot(&s_hist[m - 1], &y_hist[m - 1]) / dot(&y_hist[m - 1], &y_hist[m - 1])
-            } else {
-                1.0
-            };
-            for v in q.iter_mut() {
-                *v *= gamma;
-            }
+        }
+        for v in q.iter_mut() {
+            *v *= gamma;
         }
         for i in 0..m {
             let b = rho[i] * dot(&y_hist[i], &q);
