@@ -30,6 +30,15 @@ pub struct Sample {
     pub cells_used: usize,
 }
 
+/// Fisher–Yates shuffle of `v` in place, drawing from `rng` (the draws this module's samples
+/// were defined with, so a seed keeps giving the same frames).
+fn shuffle(v: &mut [usize], rng: &mut ChaCha8Rng) {
+    for i in (1..v.len()).rev() {
+        let j = rng.random_range(0..=i);
+        v.swap(i, j);
+    }
+}
+
 /// Draw up to `per_cell` frames from each cell defined by the codes in `strata` (a frame with
 /// any unlabelled code is left out), at most `max_total` frames in all (the per-cell quota is
 /// lowered to fit), shuffled with `seed`.
@@ -45,11 +54,8 @@ pub fn stratified(strata: &[&[u32]], per_cell: usize, max_total: usize, seed: u6
     }
     let mut rng = ChaCha8Rng::seed_from_u64(seed);
     for frames in cells.values_mut() {
-        // Fisher-Yates; cells are visited in key order, so the draw is reproducible
-        for i in (1..frames.len()).rev() {
-            let j = rng.random_range(0..=i);
-            frames.swap(i, j);
-        }
+        // cells are visited in key order, so the draw is reproducible
+        shuffle(frames, &mut rng);
     }
     let taken = |q: usize| cells.values().map(|c| c.len().min(q)).sum::<usize>();
     let mut quota = per_cell;
@@ -70,10 +76,7 @@ pub fn stratified(strata: &[&[u32]], per_cell: usize, max_total: usize, seed: u6
         // Fewer frames allowed than there are cells: one frame from each of `max_total`
         // cells, the cells drawn with the same generator (in key order, then shuffled).
         let mut firsts: Vec<usize> = cells.values().map(|c| c[0]).collect();
-        for i in (1..firsts.len()).rev() {
-            let j = rng.random_range(0..=i);
-            firsts.swap(i, j);
-        }
+        shuffle(&mut firsts, &mut rng);
         firsts.truncate(max_total);
         firsts
     } else {

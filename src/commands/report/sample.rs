@@ -2,7 +2,8 @@
 //!
 //! A probe fit and the map's full-space purity metrics cost in proportion to the layer's
 //! width: a report on 13 layers 768 wide with the standalone commands' caps (20 000 training
-//! frames per probe fit, 10 000 map points) takes about ten minutes on 2 cores. So, unless
+//! frames per probe fit, 10 000 map points) took 257 s on 2 cores, 85 s with this sample
+//! (bench/results.md, 2026-12-03). So, unless
 //! told otherwise (`--probe-frames`, `--map-points`), the report keeps the commands' caps on
 //! layers up to [`FULL_WIDTH`] wide and scales both caps by `FULL_WIDTH / width` on wider
 //! layers, never below a floor. The choice depends only on the widest selected layer of the

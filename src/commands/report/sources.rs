@@ -153,9 +153,10 @@ pub fn hash_files(
 }
 
 /// Byte count and SHA-256 of one file, read through a memory map in windows of `window`
-/// bytes (64 MiB in use), each dropped from the resident set once hashed. On the virtual machines measured, `read` into
-/// a buffer copied at about 0.45 GB/s from the page cache; the map hashes at the digest's own
-/// rate (a 13-layer capture of 4 GB: 14 s before, about 3 s after on one core).
+/// bytes (64 MiB in use), each dropped from the resident set once hashed. On the virtual
+/// machines measured, `read` into a buffer copied at about 0.45 GB/s from the page cache; the
+/// map hashes at the digest's own rate (a 13-layer capture of 4 GB: 14 s before, about 3 s
+/// after on one core).
 fn hash_one(
     path: &Path,
     window: usize,
